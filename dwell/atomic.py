@@ -1,0 +1,81 @@
+"""Atomic output: write to a temporary name beside the target, then rename over it.
+
+A reader (or a resumed sweep) never sees a half-written file: it sees the old file or the new
+one.  Errors (disk full, permission) surface as :class:`OutputError` with the path, and the
+temporary file is removed.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Iterator
+
+
+class OutputError(Exception):
+    """Writing an output failed; the message names the path."""
+
+
+@contextmanager
+def atomic_path(target: str | Path, suffix: str = "") -> Iterator[Path]:
+    """Yield a temporary path in the target's folder; on success rename it onto the target."""
+    target = Path(target)
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp" + suffix,
+                                   dir=target.parent)
+        os.close(fd)
+    except OSError as exc:
+        raise OutputError(f"{target}: cannot write ({exc.strerror or exc})") from None
+    tmp_path = Path(tmp)
+    try:
+        yield tmp_path
+        os.replace(tmp_path, target)
+    except OSError as exc:
+        tmp_path.unlink(missing_ok=True)
+        raise OutputError(f"{target}: cannot write ({exc.strerror or exc})") from None
+    except BaseException:
+        tmp_path.unlink(missing_ok=True)
+        raise
+
+
+def write_text(target: str | Path, text: str) -> None:
+    with atomic_path(target) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+
+
+def write_bytes(target: str | Path, data: bytes) -> None:
+    with atomic_path(target) as tmp:
+        tmp.write_bytes(data)
+
+
+@contextmanager
+def atomic_dir(target: str | Path) -> Iterator[Path]:
+    """Build a folder under a temporary name and rename it into place when complete.
+
+    If the target exists it is replaced only once the new folder is complete.
+    """
+    target = Path(target)
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent))
+    except OSError as exc:
+        raise OutputError(f"{target}: cannot create ({exc.strerror or exc})") from None
+    try:
+        yield tmp
+        if target.exists():
+            old = target.with_name(f".{target.name}.old-{os.getpid()}")
+            os.replace(target, old)
+            os.replace(tmp, target)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, target)
+    except OSError as exc:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise OutputError(f"{target}: cannot write ({exc.strerror or exc})") from None
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise

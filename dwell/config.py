@@ -1,0 +1,234 @@
+"""Scenario files (TOML): read, check every table, resolve defaults, build the constellation.
+
+Top-level tables (the key names are a contract: later versions add keys, never rename them):
+
+- ``[scenario]``: ``start`` (ISO-8601 UTC), ``duration_s``, and optional engine settings;
+- ``[[constellation]]``: one or more sources (see :mod:`dwell.constellations`);
+- ``[[terminal]]``: one or more ground terminals;
+- ``[[policy]]`` and ``[link]``: serving policies and the link budget (see :mod:`dwell.policies`,
+  :mod:`dwell.link`).
+
+:func:`load_scenario` checks everything a run will read (element files, masks, tracks) before any
+work starts, and raises :class:`~dwell.errors.InputError` naming the file, key and value.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import json
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from . import hardware, link, obstruction, policies
+from .constellations import SOURCES, BuildContext, Constellation
+from .errors import InputError
+from .schema import REQUIRED, Field, between, check_table, flag, ge, gt, le, number, text
+from .timebase import Epoch, parse_utc
+
+PATH_KEYS = ("path", "mask", "track")  # keys whose values are files relative to the config
+
+
+def _utc(value: Any) -> str | None:
+    try:
+        parse_utc(value)
+    except ValueError as exc:
+        return str(exc)
+    return None
+
+
+SCENARIO_KEYS: dict[str, Field] = {
+    "start": Field((str,), REQUIRED, (_utc,), "scenario start, ISO-8601 UTC"),
+    "duration_s": number(REQUIRED, gt(0), le(366 * 86400), doc="scenario length"),
+    "name": text("scenario", doc="label carried into the outputs"),
+    "seed": Field((int,), 0, (ge(0),), "seed for every stochastic part of the run"),
+    "earth_rotation": flag(True, doc="false freezes the Earth (analytic studies)"),
+    "ut1_utc_s": number(0.0, between(-1.0, 1.0), doc="UT1-UTC used for sidereal time"),
+    "measurement_period_s": number(1.0, gt(0), le(60), doc="terminal measurement cycle"),
+    "propagation_step_s": Field((int, float), None, (gt(0), le(3600)),
+                                "SGP4 sample spacing; default: from the shortest orbit period"),
+    "chunk_s": number(21600.0, ge(600), doc="geometry is computed in chunks of this length"),
+    "refine_s": number(0.01, gt(0), le(0.05), doc="rise/set times are refined to this"),
+}
+
+TERMINAL_KEYS: dict[str, Field] = {
+    "name": text(REQUIRED, doc="label, unique in the scenario"),
+    "lat_deg": number(REQUIRED, between(-90, 90), doc="WGS-84 geodetic latitude"),
+    "lon_deg": number(REQUIRED, between(-180, 360), doc="longitude, east positive"),
+    "alt_m": number(0.0, between(-500, 100000), doc="height above the WGS-84 ellipsoid"),
+    "min_elevation_deg": number(25.0, between(-5, 90), doc="elevation floor of the terminal"),
+    **obstruction.TERMINAL_KEYS,
+    **hardware.TERMINAL_KEYS,
+}
+
+CONSTELLATION_COMMON = {
+    "kind": text(REQUIRED, choices=tuple(SOURCES), doc="source kind"),
+    "name": Field((str,), None, (), "label; satellites are named after it"),
+}
+
+TOP_LEVEL = ("scenario", "constellation", "terminal", "policy", "link")
+
+
+@dataclass
+class Scenario:
+    """A checked scenario: resolved tables plus the objects built from them."""
+
+    source: str
+    base_dir: Path
+    scenario: dict[str, Any]
+    constellations: list[dict[str, Any]]
+    terminals: list[dict[str, Any]]
+    policies: list[dict[str, Any]]
+    link: dict[str, Any]
+    constellation: Constellation = field(default_factory=Constellation)
+    epoch: Epoch | None = None
+    sites: list[Any] = field(default_factory=list)   # dwell.obstruction.Site per terminal
+
+    def resolved(self) -> dict[str, Any]:
+        """The fully resolved configuration (defaults filled, paths absolute, no nulls)."""
+        out = {"scenario": self.scenario, "constellation": self.constellations,
+               "terminal": self.terminals, "policy": self.policies, "link": self.link}
+        return _drop_none(copy.deepcopy(out))
+
+    def config_hash(self) -> str:
+        """sha256 of the resolved config, with referenced files hashed by content, not path."""
+        return hashlib.sha256(_canonical(self.resolved()).encode()).hexdigest()
+
+    @property
+    def seed(self) -> int:
+        return int(self.scenario["seed"])
+
+    def terminal_names(self) -> list[str]:
+        return [t["name"] for t in self.terminals]
+
+
+def _drop_none(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {k: _drop_none(v) for k, v in obj.items() if v is not None}
+    if isinstance(obj, list):
+        return [_drop_none(v) for v in obj]
+    return obj
+
+
+def _canonical(resolved: dict) -> str:
+    def walk(obj: Any, key: str = "") -> Any:
+        if isinstance(obj, dict):
+            return {k: walk(v, k) for k, v in sorted(obj.items())}
+        if isinstance(obj, list):
+            return [walk(v, key) for v in obj]
+        if key in PATH_KEYS and isinstance(obj, str) and Path(obj).is_file():
+            return "sha256:" + hashlib.sha256(Path(obj).read_bytes()).hexdigest()
+        return obj
+    return json.dumps(walk(resolved), sort_keys=True, default=str)
+
+
+def read_toml(path: Path) -> dict[str, Any]:
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise InputError(str(path), None, None, f"cannot read: {exc.strerror or exc}") from None
+    try:
+        return tomllib.loads(data.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise InputError(str(path), None, None, "not UTF-8 text") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(str(path), None, None, f"not valid TOML ({exc})") from None
+
+
+def load_scenario(path: str | Path, *, warn: Callable[[str], None] | None = None,
+                  build: bool = True) -> Scenario:
+    """Read and check a scenario file; with ``build`` also build satellites and sites."""
+    path = Path(path)
+    raw = read_toml(path)
+    return scenario_from_dict(raw, str(path), path.resolve().parent, warn=warn, build=build)
+
+
+def _array_of_tables(raw: dict, key: str, source: str, required: bool) -> list[dict]:
+    value = raw.get(key, [])
+    if isinstance(value, dict):
+        value = [value]
+    if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+        raise InputError(source, key, value, f"must be one or more [[{key}]] tables")
+    if required and not value:
+        raise InputError(source, f"[[{key}]]", None, "at least one table is required",
+                         show_value=False)
+    return value
+
+
+def _absolute(params: dict, base_dir: Path) -> None:
+    for key in PATH_KEYS:
+        if isinstance(params.get(key), str):
+            p = Path(params[key])
+            params[key] = str(p if p.is_absolute() else (base_dir / p).resolve())
+
+
+def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
+                       warn: Callable[[str], None] | None = None, build: bool = True) -> Scenario:
+    """Check a decoded scenario; ``source`` names the file in error messages."""
+    warn = warn or (lambda msg: None)
+    for key, value in raw.items():
+        if key not in TOP_LEVEL:
+            raise InputError(source, key, value if not isinstance(value, (dict, list)) else None,
+                             "unknown table (known: " + ", ".join(TOP_LEVEL) + ")",
+                             show_value=not isinstance(value, (dict, list)))
+    if "scenario" not in raw:
+        raise InputError(source, "[scenario]", None, "missing table", show_value=False)
+    scen = check_table(raw["scenario"], SCENARIO_KEYS, source, "scenario")
+    scen["start"] = parse_utc(scen["start"]).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    epoch = Epoch(parse_utc(scen["start"]))
+    if scen["measurement_period_s"] > scen["duration_s"]:
+        raise InputError(source, "scenario.measurement_period_s", scen["measurement_period_s"],
+                         "must not exceed duration_s")
+
+    consts = []
+    for i, table in enumerate(_array_of_tables(raw, "constellation", source, True)):
+        where = f"constellation[{i + 1}]"
+        kind = table.get("kind")
+        if kind not in SOURCES:
+            check_table({"kind": kind} if kind is not None else {}, CONSTELLATION_COMMON,
+                        source, where)
+        spec = {**CONSTELLATION_COMMON, **SOURCES[kind].keys}
+        params = check_table(table, spec, source, where)
+        if params["name"] is None:
+            params["name"] = f"{kind.replace('-', '')}{i + 1}"
+        _absolute(params, base_dir)
+        consts.append(params)
+
+    terms = []
+    names: set[str] = set()
+    for i, table in enumerate(_array_of_tables(raw, "terminal", source, True)):
+        where = f"terminal[{i + 1}]"
+        params = check_table(table, TERMINAL_KEYS, source, where)
+        if params["name"] in names:
+            raise InputError(source, f"{where}.name", params["name"], "duplicate terminal name")
+        names.add(params["name"])
+        obstruction.check_terminal(params, source, where)
+        hardware.check_terminal(params, source, where)
+        _absolute(params, base_dir)
+        terms.append(params)
+
+    link_params = link.check_table(raw.get("link", {}), source)
+    pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source, warn)
+
+    out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
+    if build:
+        out.constellation = build_constellation(out, warn)
+        out.sites = [obstruction.build_site(t, out, i, warn) for i, t in enumerate(terms)]
+    return out
+
+
+def build_constellation(scen: Scenario, warn: Callable[[str], None]) -> Constellation:
+    """Build every ``[[constellation]]`` table in order into one constellation."""
+    sats = []
+    for i, params in enumerate(scen.constellations):
+        ctx = BuildContext(scen.source, f"constellation[{i + 1}]", scen.base_dir,
+                           scen.epoch.sgp4_epoch_days(), len(sats), warn, scen.seed, i)
+        sats.extend(SOURCES[params["kind"]].build(params, ctx))
+    seen: dict[str, int] = {}
+    for s in sats:  # names must be unique across tables too
+        seen[s.name] = seen.get(s.name, 0) + 1
+        if seen[s.name] > 1:
+            s.name = f"{s.name}#{seen[s.name]}"
+    return Constellation(sats)

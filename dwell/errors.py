@@ -1,0 +1,34 @@
+"""One error type for bad user input, so the CLI can print one line and exit with status 2."""
+
+from __future__ import annotations
+
+
+class InputError(Exception):
+    """Bad user input: names the file, the key (or line) and the offending value.
+
+    ``str(err)`` is the one line the CLI prints, e.g.
+    ``demo.toml: constellation[1].altitude_km = -5: must be > 0``.
+    """
+
+    def __init__(self, source: str, where: str | None, value: object = None, reason: str = "",
+                 *, show_value: bool = True):
+        self.source = str(source)
+        self.where = where
+        self.value = value
+        self.reason = reason
+        self.show_value = show_value
+        super().__init__(self._line())
+
+    def _line(self) -> str:
+        head = self.source
+        if self.where:
+            head += f": {self.where}"
+            if self.show_value:
+                head += f" = {_short(self.value)}"
+        return f"{head}: {self.reason}" if self.reason else head
+
+
+def _short(value: object, limit: int = 60) -> str:
+    text = repr(value)
+    text = text.replace("\n", "\\n")
+    return text if len(text) <= limit else text[: limit - 3] + "..."

@@ -1,0 +1,213 @@
+"""The geometry layer of a scenario: satellites over time and every terminal's visibility.
+
+:class:`Geometry` walks the scenario chunk by chunk (SGP4 once per chunk for all terminals),
+finds floor passes and visibility windows for every site, joins intervals that continue across a
+chunk edge under one global id, and gives each window a column ("slot") so that the measurement
+layer can lay the satellites in view out as a dense, narrow matrix.
+
+Memory: one chunk of satellite states (S x n x 9 floats) plus the window tables, which grow with
+duration by a few hundred bytes per pass.
+"""
+
+from __future__ import annotations
+
+import heapq
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .config import Scenario
+from .frames import EarthOrientation
+from .obstruction.site import Site
+from .passes import CAUSE_EDGE, CAUSE_NAMES, PassOptions, Windows, find_windows
+from .sky import Sky
+
+
+@dataclass
+class SiteWindows:
+    """Windows of one site in one chunk, with global ids and slots."""
+
+    windows: Windows
+    wid: np.ndarray       # global window id
+    pass_gid: np.ndarray  # global floor-pass id of each window
+    slot: np.ndarray      # column in the measurement matrix
+    passes: Windows       # floor passes of the chunk
+    pid: np.ndarray       # global floor-pass id of each pass
+
+
+class _Ledger:
+    """Joins intervals across chunk edges and hands out ids (and slots, for windows)."""
+
+    def __init__(self, with_slots: bool):
+        self.next_id = 0
+        self.open: dict[int, int] = {}          # satellite -> id of an interval open at the edge
+        self.open_slot: dict[int, int] = {}
+        self.with_slots = with_slots
+        self.busy: list[tuple[float, int]] = []  # (end time, slot) heap
+        self.free: list[int] = []
+        self.n_slots = 0
+
+    def assign(self, w: Windows, t0_s: float) -> tuple[np.ndarray, np.ndarray]:
+        n = len(w)
+        ids = np.empty(n, dtype=np.int64)
+        slots = np.full(n, -1, dtype=np.int64)
+        order = np.argsort(w.start_s, kind="stable")
+        still_open: dict[int, int] = {}
+        still_slot: dict[int, int] = {}
+        for k in order:
+            s = int(w.sat[k])
+            cont = w.start_cause[k] == CAUSE_EDGE and w.start_s[k] == t0_s and s in self.open
+            if cont:
+                ids[k] = self.open[s]
+                slot = self.open_slot.get(s, -1)
+            else:
+                ids[k] = self.next_id
+                self.next_id += 1
+                slot = self._take_slot(float(w.start_s[k])) if self.with_slots else -1
+            slots[k] = slot
+            if w.end_cause[k] == CAUSE_EDGE:
+                still_open[s] = int(ids[k])
+                still_slot[s] = slot
+            elif self.with_slots:
+                heapq.heappush(self.busy, (float(w.end_s[k]), slot))
+        self.open, self.open_slot = still_open, still_slot
+        return ids, slots
+
+    def _take_slot(self, start_s: float) -> int:
+        while self.busy and self.busy[0][0] <= start_s:
+            heapq.heappush(self.free, heapq.heappop(self.busy)[1])
+        if self.free:
+            return heapq.heappop(self.free)
+        self.n_slots += 1
+        return self.n_slots - 1
+
+
+class Geometry:
+    """Chunked visibility of every site of a scenario."""
+
+    def __init__(self, scen: Scenario, *, warn: Callable[[str], None] | None = None,
+                 opts: PassOptions | None = None, sites: list[Site] | None = None):
+        self.scen = scen
+        self.warn = warn or (lambda msg: None)
+        sc = scen.scenario
+        self.duration_s = float(sc["duration_s"])
+        self.earth = EarthOrientation(scen.epoch, sc["ut1_utc_s"], sc["earth_rotation"])
+        self.sky = Sky(scen.constellation, scen.epoch, self.duration_s,
+                       step_s=sc["propagation_step_s"], chunk_s=sc["chunk_s"], warn=self.warn, keep=3)
+        self.sites = scen.sites if sites is None else sites
+        self.opts = opts or PassOptions(refine_s=sc["refine_s"])
+        sats = scen.constellation.satellites
+        # fastest angular motion of any satellite relative to a site (perigee speed-up included)
+        rate = 0.0
+        for s in sats:
+            e = min(s.eccentricity, 0.95)
+            rate = max(rate, s.mean_motion_rad_s * (1 + e) ** 2 / (1 - e * e) ** 1.5)
+        speed = max([site.max_speed_km_s for site in self.sites] + [0.0])
+        self.max_rate_rad_s = rate * 1.02 + self.earth.rate_rad_s + speed / 6300.0
+        self._win_ledger = [_Ledger(True) for _ in self.sites]
+        self._pass_ledger = [_Ledger(False) for _ in self.sites]
+        self._chunks: dict[int, list[SiteWindows]] = {}
+        self._done = -1
+        self.tables: list[list[SiteWindows]] = [[] for _ in self.sites]  # every chunk, kept
+        self.evaluations = 0
+
+    @property
+    def n_chunks(self) -> int:
+        return self.sky.n_chunks
+
+    def chunk_windows(self, c: int) -> list[SiteWindows]:
+        """Windows of every site in chunk ``c`` (chunks are computed in order, once)."""
+        while self._done < c:
+            self._compute(self._done + 1)
+        return self._chunks[c]
+
+    def _compute(self, c: int) -> None:
+        chunk = self.sky.chunk(c)
+        out = []
+        for k, site in enumerate(self.sites):
+            passes, windows = find_windows(chunk, site, self.earth, self.max_rate_rad_s, self.opts,
+                                           site.los)
+            pid, _ = self._pass_ledger[k].assign(passes, chunk.t0_s)
+            wid, slot = self._win_ledger[k].assign(windows, chunk.t0_s)
+            sw = SiteWindows(windows, wid, pid[windows.pass_id] if len(windows) else
+                             np.zeros(0, np.int64), slot, passes, pid)
+            out.append(sw)
+            self.tables[k].append(sw)
+        self._chunks[c] = out
+        self._done = c
+
+    def run_all(self, progress: Callable[[int, int], None] | None = None) -> None:
+        for c in range(self.n_chunks):
+            self.chunk_windows(c)
+            if progress:
+                progress(c + 1, self.n_chunks)
+
+    def n_slots(self, site_index: int) -> int:
+        return self._win_ledger[site_index].n_slots
+
+    # ---- whole-run tables --------------------------------------------------------------------
+
+    def window_frame(self, site_index: int, *, floor_passes: bool = False) -> pd.DataFrame:
+        """One row per visibility window (or floor pass) over the chunks computed so far,
+        intervals continued across chunk edges joined."""
+        parts = []
+        for sw in self.tables[site_index]:
+            w, ids = (sw.passes, sw.pid) if floor_passes else (sw.windows, sw.wid)
+            if not len(w):
+                continue
+            parts.append(pd.DataFrame({
+                "id": ids, "sat": w.sat, "start_s": w.start_s, "end_s": w.end_s,
+                "start_cause": w.start_cause, "end_cause": w.end_cause,
+                "culm_s": w.culm_s, "culm_el_deg": w.culm_el_deg,
+                "pass_id": sw.pid if floor_passes else sw.pass_gid,
+                "slot": np.full(len(w), -1) if floor_passes else sw.slot}))
+        cols = ["id", "sat", "start_s", "end_s", "start_cause", "end_cause", "culm_s",
+                "culm_el_deg", "pass_id", "slot"]
+        if not parts:
+            return pd.DataFrame({c: pd.Series(dtype="float64" if c.endswith(("_s", "_deg"))
+                                              else "int64") for c in cols})
+        df = pd.concat(parts, ignore_index=True).sort_values(["id", "start_s"], kind="stable")
+        best = df.groupby("id")["culm_el_deg"].idxmax()
+        agg = df.groupby("id", sort=True).agg(sat=("sat", "first"), start_s=("start_s", "first"),
+                                              end_s=("end_s", "last"),
+                                              start_cause=("start_cause", "first"),
+                                              end_cause=("end_cause", "last"),
+                                              pass_id=("pass_id", "first"), slot=("slot", "first"))
+        agg["culm_s"] = df.loc[best.values, "culm_s"].values
+        agg["culm_el_deg"] = df.loc[best.values, "culm_el_deg"].values
+        agg = agg.reset_index().sort_values(["start_s", "sat"], kind="stable").reset_index(drop=True)
+        return agg[cols]
+
+    def close(self) -> None:
+        self.sky.close()
+
+
+def cause_name(code: np.ndarray) -> np.ndarray:
+    return np.asarray(CAUSE_NAMES, dtype=object)[np.asarray(code, dtype=int)]
+
+
+def coverage_steps(start_s: np.ndarray, end_s: np.ndarray, duration_s: float
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Run-length encoding of how many intervals cover each instant of [0, duration].
+
+    Returns (segment start, segment end, count), segments in time order covering the span.
+    """
+    times = np.concatenate([start_s, end_s])
+    delta = np.concatenate([np.ones(start_s.size, np.int64), -np.ones(end_s.size, np.int64)])
+    order = np.lexsort((delta, times))          # at equal times, ends (-1) before starts
+    times, delta = times[order], delta[order]
+    edges = np.concatenate([[0.0], times, [duration_s]])
+    counts = np.concatenate([[0], np.cumsum(delta)])
+    seg_start, seg_end = edges[:-1], edges[1:]
+    keep = seg_end > seg_start
+    seg_start, seg_end, counts = seg_start[keep], seg_end[keep], counts[keep]
+    if counts.size:
+        # merge neighbours with equal counts
+        change = np.concatenate([[True], counts[1:] != counts[:-1]])
+        idx = np.flatnonzero(change)
+        seg_end = np.append(seg_start[idx[1:]], seg_end[-1])
+        seg_start, counts = seg_start[idx], counts[idx]
+    return seg_start, seg_end, counts
+
