@@ -84,6 +84,31 @@ class _Ledger:
         return self.n_slots - 1
 
 
+class WindowIndex:
+    """Whole-window facts by global id (start, end, satellite, closed), growing as chunks come."""
+
+    def __init__(self):
+        self.start_s = np.zeros(0)
+        self.end_s = np.zeros(0)
+        self.sat = np.zeros(0, dtype=np.int64)
+        self.closed = np.zeros(0, dtype=bool)
+
+    def update(self, ids: np.ndarray, w: Windows, duration_s: float) -> None:
+        if ids.size == 0:
+            return
+        n = int(ids.max()) + 1
+        if n > self.start_s.size:
+            grow = max(n, 2 * self.start_s.size)
+            self.start_s = np.concatenate([self.start_s, np.full(grow - self.start_s.size, np.inf)])
+            self.end_s = np.concatenate([self.end_s, np.full(grow - self.end_s.size, -np.inf)])
+            self.sat = np.concatenate([self.sat, np.full(grow - self.sat.size, -1)])
+            self.closed = np.concatenate([self.closed, np.zeros(grow - self.closed.size, bool)])
+        np.minimum.at(self.start_s, ids, w.start_s)
+        np.maximum.at(self.end_s, ids, w.end_s)
+        self.sat[ids] = w.sat
+        self.closed[ids] |= (w.end_cause != CAUSE_EDGE) | (w.end_s >= duration_s)
+
+
 class Geometry:
     """Chunked visibility of every site of a scenario."""
 
@@ -108,7 +133,7 @@ class Geometry:
         self.max_rate_rad_s = rate * 1.02 + self.earth.rate_rad_s + speed / 6300.0
         self._win_ledger = [_Ledger(True) for _ in self.sites]
         self._pass_ledger = [_Ledger(False) for _ in self.sites]
-        self._chunks: dict[int, list[SiteWindows]] = {}
+        self.index = [WindowIndex() for _ in self.sites]
         self._done = -1
         self.tables: list[list[SiteWindows]] = [[] for _ in self.sites]  # every chunk, kept
         self.evaluations = 0
@@ -121,11 +146,10 @@ class Geometry:
         """Windows of every site in chunk ``c`` (chunks are computed in order, once)."""
         while self._done < c:
             self._compute(self._done + 1)
-        return self._chunks[c]
+        return [t[c] for t in self.tables]
 
     def _compute(self, c: int) -> None:
         chunk = self.sky.chunk(c)
-        out = []
         for k, site in enumerate(self.sites):
             passes, windows = find_windows(chunk, site, self.earth, self.max_rate_rad_s, self.opts,
                                            site.los)
@@ -133,10 +157,18 @@ class Geometry:
             wid, slot = self._win_ledger[k].assign(windows, chunk.t0_s)
             sw = SiteWindows(windows, wid, pid[windows.pass_id] if len(windows) else
                              np.zeros(0, np.int64), slot, passes, pid)
-            out.append(sw)
             self.tables[k].append(sw)
-        self._chunks[c] = out
+            self.index[k].update(wid, windows, self.duration_s)
         self._done = c
+
+    def computed_until_s(self) -> float:
+        return self.sky.bounds(self._done)[1] if self._done >= 0 else 0.0
+
+    def ensure_closed(self, site_index: int, ids: np.ndarray) -> None:
+        """Compute further chunks until the windows ``ids`` have known ends."""
+        while self._done < self.n_chunks - 1 and ids.size and \
+                not self.index[site_index].closed[ids].all():
+            self._compute(self._done + 1)
 
     def run_all(self, progress: Callable[[int, int], None] | None = None) -> None:
         for c in range(self.n_chunks):

@@ -165,6 +165,32 @@ def _check_initial(initial: float | None, segment_start: np.ndarray) -> None:
         raise ValueError("initial given but sample 0 is marked as a new segment start")
 
 
+def _carry_array(initial: float | None, n_segments: int) -> np.ndarray:
+    carry = np.full(n_segments, np.nan)
+    if initial is not None:
+        carry[0] = float(initial)
+    return carry
+
+
+def l3_filter_blocks(values_db: np.ndarray, segment_start: np.ndarray, alpha: float,
+                     carry: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Layer-3 filter over segments, each either fresh (``F_0 = M_1``) or continuing a filter
+    state carried from a previous time block: ``carry`` holds one value per segment, NaN for a
+    fresh start.  Returns the filtered series and the last state of each segment."""
+    m = _as_series(values_db)
+    if m.shape[0] == 0:
+        return m.copy(), m.copy()
+    start_idx, seg_of = _segments(m.shape[0], segment_start)
+    carry = np.asarray(carry, dtype=float)
+    if carry.shape != start_idx.shape:
+        raise ValueError("carry needs one value per segment")
+    # F_(s-1) that makes F_s = M_s:  (1 - a) F + a M = M  ->  F = M
+    state0 = np.where(np.isnan(carry), m[start_idx], carry)
+    f = _first_order_segments(float(alpha) * m, 1.0 - float(alpha), start_idx, seg_of, state0)
+    end_idx = np.append(start_idx[1:] - 1, m.shape[0] - 1)
+    return f, f[end_idx]
+
+
 def l3_filter_segments(values_db: np.ndarray, segment_start: np.ndarray, alpha: float,
                        initial: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Layer-3 filter ``F_n = (1 - a) F_(n-1) + a M_n`` (TS 38.331 section 5.5.3.2) in dB,
@@ -181,15 +207,34 @@ def l3_filter_segments(values_db: np.ndarray, segment_start: np.ndarray, alpha: 
     if m.shape[0] == 0:
         return m.copy(), m.copy()
     _check_initial(initial, segment_start)
-    start_idx, seg_of = _segments(m.shape[0], segment_start)
-    pole = 1.0 - float(alpha)
-    # F_(s-1) that makes F_s = M_s:  (1 - a) F + a M = M  ->  F = M
-    state0 = m[start_idx].copy()
-    if initial is not None:
-        state0[0] = float(initial)
-    f = _first_order_segments(float(alpha) * m, pole, start_idx, seg_of, state0)
-    end_idx = np.append(start_idx[1:] - 1, m.shape[0] - 1)
-    return f, f[end_idx]
+    start_idx, _ = _segments(m.shape[0], segment_start)
+    return l3_filter_blocks(m, segment_start, alpha, _carry_array(initial, start_idx.size))
+
+
+def ar1_blocks(innovations: np.ndarray, segment_start: np.ndarray, rho: float,
+               carry: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Unit-variance AR(1) over segments, each fresh (``x_0 = z_0``) or continuing a carried
+    state (``x_0 = rho carry + sqrt(1 - rho^2) z_0``); ``carry`` as in
+    :func:`l3_filter_blocks`."""
+    z = _as_series(innovations)
+    if z.shape[0] == 0:
+        return z.copy(), z.copy()
+    rho = float(rho)
+    if not -1.0 <= rho <= 1.0:
+        raise ValueError("rho must be in [-1, 1]")
+    s = np.sqrt(1.0 - rho * rho)
+    start_idx, seg_of = _segments(z.shape[0], segment_start)
+    carry = np.asarray(carry, dtype=float)
+    if carry.shape != start_idx.shape:
+        raise ValueError("carry needs one value per segment")
+    fresh = np.isnan(carry)
+    u = s * z
+    # a fresh start is stationary, x_s = z_s: zero state plus u_s = z_s
+    u[start_idx[fresh]] = z[start_idx[fresh]]
+    state0 = np.where(fresh, 0.0, carry)
+    x = _first_order_segments(u, rho, start_idx, seg_of, state0)
+    end_idx = np.append(start_idx[1:] - 1, z.shape[0] - 1)
+    return x, x[end_idx]
 
 
 def ar1_segments(innovations: np.ndarray, segment_start: np.ndarray, rho: float,
@@ -206,21 +251,8 @@ def ar1_segments(innovations: np.ndarray, segment_start: np.ndarray, rho: float,
     if z.shape[0] == 0:
         return z.copy(), z.copy()
     _check_initial(initial, segment_start)
-    rho = float(rho)
-    if not -1.0 <= rho <= 1.0:
-        raise ValueError("rho must be in [-1, 1]")
-    s = np.sqrt(1.0 - rho * rho)
-    start_idx, seg_of = _segments(z.shape[0], segment_start)
-    u = s * z
-    # x_s = z_s: add (1 - s) z_s at the start, i.e. a zero-state start plus u_s = z_s
-    u[start_idx] = z[start_idx]
-    state0 = np.zeros(start_idx.shape[0])
-    if initial is not None:
-        u[0] = s * z[0]
-        state0[0] = float(initial)
-    x = _first_order_segments(u, rho, start_idx, seg_of, state0)
-    end_idx = np.append(start_idx[1:] - 1, z.shape[0] - 1)
-    return x, x[end_idx]
+    start_idx, _ = _segments(z.shape[0], segment_start)
+    return ar1_blocks(z, segment_start, rho, _carry_array(initial, start_idx.size))
 
 
 # ---- the [link] table ---------------------------------------------------------------------------
