@@ -262,17 +262,25 @@ FILTER_COEFFICIENTS = (0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 11, 13, 15, 17, 19)  # TS 3
 
 KEYS: dict[str, Field] = {
     "frequency_ghz": number(2.0, gt(0), le(300), doc="carrier frequency"),
-    "eirp_density_dbw_mhz": number(34.0, between(-50, 100),
+    "eirp_density_dbw_mhz": number(20.0, between(-50, 100),
                                    doc="satellite EIRP density per MHz at beam peak "
-                                       "(S-band LEO-600, TR 38.821 Table 6.1.1.1-1, from memory)"),
-    "bandwidth_mhz": number(30.0, gt(0), le(2000), doc="channel bandwidth"),
+                                       "(illustrative; TR 38.821 Table 6.1.1.1-1 quotes 34 for "
+                                       "S-band LEO-600 spot beams, from memory)"),
+    "bandwidth_mhz": number(10.0, gt(0), le(2000), doc="channel bandwidth"),
     "subcarrier_spacing_khz": Field((int,), 15, (), "NR subcarrier spacing",
                                     choices=SUBCARRIER_SPACINGS_KHZ),
-    "sat_max_gain_dbi": number(30.0, between(0, 80),
-                               doc="satellite antenna peak gain (TR 38.821, from memory)"),
-    "sat_aperture_m": number(2.0, gt(0), le(100),
-                             doc="satellite antenna aperture diameter (TR 38.821, from memory)"),
-    "terminal_gain_dbi": number(0.0, between(-30, 60), doc="terminal antenna gain at panel normal"),
+    "sat_max_gain_dbi": number(6.0, between(0, 80),
+                               doc="satellite antenna peak gain (illustrative wide beam; TR 38.821 "
+                                   "spot beams: 30 dBi, from memory)"),
+    "sat_aperture_m": number(0.1, gt(0), le(100),
+                             doc="satellite antenna aperture diameter (illustrative wide beam: "
+                                 "-3 dB near 56 deg off nadir at 2 GHz; TR 38.821 spot beams: 2 m)"),
+    "sat_beam_pointing": Field((str,), "nadir", (), "nadir: one nadir-pointed beam, gain from the "
+                               "TR 38.811 pattern at the off-nadir angle; terminal: the serving "
+                               "beam points at the terminal (a multi-beam payload's best beam)",
+                               choices=("nadir", "terminal")),
+    "terminal_gain_dbi": number(20.0, between(-30, 60),
+                                doc="terminal antenna gain at panel normal (illustrative flat panel)"),
     "scan_loss_exponent": number(1.2, between(0, 10),
                                  doc="x of the cos^x panel scan loss (common practice)"),
     "noise_figure_db": number(7.0, between(0, 30),
@@ -347,6 +355,8 @@ class LinkModel:
             *(np.asarray(v, dtype=float) for v in (range_km, elevation_deg, off_boresight_deg, rdot)))
         f_ghz = self.frequency_ghz
         loss = fspl_db(rng, f_ghz)
+        if p["sat_beam_pointing"] == "terminal":
+            theta = np.zeros_like(theta)
         gain = satellite_gain_dbi(theta, p["sat_aperture_m"], f_ghz, p["sat_max_gain_dbi"])
         scan = scan_loss_db(90.0 - elev, p["scan_loss_exponent"])
         common = (gain - p["sat_max_gain_dbi"]) + p["terminal_gain_dbi"] - scan - loss \

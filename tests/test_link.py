@@ -342,13 +342,15 @@ def test_check_table_rejects(raw, key):
 
 
 def test_budget_at_boresight_zenith_hand_computed():
-    # Hand budget with the defaults (formulas of the link-budget structure of TR 38.821,
-    # from memory): zenith pass at 600 km, boresight, no scan loss.
+    # Hand budget with TR 38.821-like S-band spot-beam values (formulas of the link-budget
+    # structure of TR 38.821, from memory): zenith pass at 600 km, boresight, no scan loss.
     #   FSPL (P.525, exact constant 32.448): 32.448 + 66.021 + 55.563 = 154.032 dB
     #   RSRP = 34 + 30 + 10 log10(0.015) - 154.032 = 64 - 18.239 - 154.032 = -108.271 dBm
     #   SNR  = (64 + 14.771 - 154.032) - (-174 + 74.771 + 7) = -75.261 + 92.229 = 16.968 dB
     # Tolerance 0.002 dB: rounding of the hand terms to 3 decimals.
-    model = link.LinkModel(link.check_table({}, "demo.toml"))
+    spot_beam = {"eirp_density_dbw_mhz": 34.0, "sat_max_gain_dbi": 30.0, "sat_aperture_m": 2.0,
+                 "bandwidth_mhz": 30.0, "terminal_gain_dbi": 0.0, "noise_figure_db": 7.0}
+    model = link.LinkModel(link.check_table(spot_beam, "demo.toml"))
     b = model.budget(600.0, 90.0, 0.0, -0.5)
     assert float(b["fspl_db"]) == pytest.approx(154.032, abs=2e-3)
     assert float(b["sat_gain_dbi"]) == pytest.approx(30.0, abs=1e-12)
@@ -360,7 +362,7 @@ def test_budget_at_boresight_zenith_hand_computed():
 
 
 def test_budget_broadcast_and_per_re_snr():
-    model = link.LinkModel({"other_losses_db": 2.0})
+    model = link.LinkModel({"other_losses_db": 2.0, "bandwidth_mhz": 30.0})
     rng_km = np.linspace(600.0, 2000.0, 4)[:, None]
     elev = np.array([90.0, 40.0, 20.0])
     b = model.budget(rng_km, elev, np.array([0.0, 5.0, 10.0]))

@@ -108,6 +108,7 @@ class Link:
     start_s: float             # when the link became usable
     release_s: float           # minimum-dwell guard release (start + min_dwell, earlier if lost)
     r_start: int = 0           # first row of the link in the rows given
+    serving_end_s: float = math.inf  # end of the serving window open at the link's start
     state: dict[str, Any] = field(default_factory=dict)  # per-link scratch of the naive path
 
 

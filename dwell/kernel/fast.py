@@ -1,0 +1,160 @@
+"""The event kernel: a simpy process per (terminal, policy) that wakes only at decision
+instants (handover, loss, radio link failure, switching done, re-establishment).
+
+Between events the next one is found by vectorised search over the measurement rows: the
+policy's ``scan``, radio-link-monitoring runs and the serving satellite's window ends, over a
+window of rows that doubles until an event is certain (nothing later in the rows can pre-empt
+it).  Cost: O(rows of the link) numpy work per link, a handful of simpy events per handover.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import simpy
+
+from ..measure import first_row_at_or_after
+from ..policies.base import Decision, Link, Policy
+from .common import PRIORITY, Execution, first_rlf_s, monitoring
+
+FIRST_ROWS = 256
+
+
+class FastRun:
+    """One terminal under one policy in the event kernel."""
+
+    def __init__(self, env: simpy.Environment, policy: Policy, execution: Execution):
+        self.env = env
+        self.policy = policy
+        self.ex = execution
+        self.s = execution.s
+        self.stream = execution.stream
+        self.process = env.process(self._run())
+
+    # ---- helpers -------------------------------------------------------------------------------
+    def _row(self, t_s: float) -> int:
+        return int(first_row_at_or_after(np.array([t_s]), self.s.period_s)[0])
+
+    def _wait_until(self, t_s: float):
+        self.ex.rec.events += 1
+        return self.env.timeout(max(0.0, t_s - self.env.now))
+
+    # ---- process -------------------------------------------------------------------------------
+    def _run(self):
+        t, initial = 0.0, True
+        while True:
+            found = self._acquire(t, initial)
+            if found is None:
+                break
+            sat, t_link = found
+            if t_link >= self.s.duration_s:
+                break
+            yield self._wait_until(t_link)
+            self.ex.open_link(sat, t_link, "initial" if initial else "reestablishment")
+            initial = False
+            while True:
+                outcome = yield from self._serve()
+                if outcome is None:                 # scenario over
+                    return
+                kind, t_next, target = outcome
+                if kind == "rlf":
+                    self.ex.close_link(t_next, "failure")
+                    self.ex.rec.failures.append(t_next)
+                    t = t_next
+                    break
+                if target is None:                  # handover into the scenario's end
+                    return
+                self.ex.open_link(target, t_next, "handover")
+        self.stream.release(self.stream.K, self)
+
+    def _acquire(self, t_from: float, initial: bool):
+        """First measurement instant at or after t_from with a satellite in view."""
+        k = self._row(t_from)
+        n = FIRST_ROWS
+        while k < self.stream.K:
+            rows = self.stream.rows(k, k + n)
+            hit = np.flatnonzero((rows.sat >= 0).any(axis=1))
+            if hit.size:
+                r = int(hit[0])
+                t_r = float(rows.t_s[r])
+                col = self.policy.select(rows, r, t_r)
+                delay = 0.0 if initial else self.s.reestablishment_s
+                return int(rows.sat[r, col]), t_r + delay
+            k += rows.n
+            self.stream.release(k, self)
+            n *= 2
+        return None
+
+    def _serve(self):
+        """Serve the current link until its next event; returns (kind, when, new satellite)."""
+        ex, s = self.ex, self.s
+        sat, t_c = ex.link_sat, ex.link_start
+        kc = self._row(t_c)
+        if kc >= self.stream.K:
+            ex.close_link(s.duration_s, "end")
+            return None
+        self.stream.release(kc, self)
+        e0 = self.stream.window_end_covering(sat, t_c)
+        e0 = t_c if e0 is None else e0
+        n = FIRST_ROWS
+        while True:
+            rows = self.stream.rows(kc, kc + n)
+            horizon = math.inf if rows.final else float(rows.t_s[-1])
+            col, oos, ins = monitoring(rows, sat, s.q_out_db, s.q_in_db)
+            lost = np.flatnonzero(oos)
+            release = t_c + s.min_dwell_s
+            if lost.size:
+                release = min(release, float(rows.t_s[lost[0]]))
+            link = Link(sat, t_c, release, 0, e0)
+            events = []
+            d = self.policy.scan(rows, link)
+            if d is not None:
+                events.append((d.time_s, PRIORITY["decision"], "decision", d))
+            if self.policy.loss_aware:
+                loss = self._loss(rows, col, sat, e0, horizon)
+                if loss is not None:
+                    events.append((loss.time_s, PRIORITY["loss"], "loss", loss))
+            t_f = first_rlf_s(oos, ins, rows.t_s, s.n310, s.n311, s.t310_s)
+            if math.isfinite(t_f):
+                events.append((t_f, PRIORITY["rlf"], "rlf", None))
+            events.append((s.duration_s, PRIORITY["end"], "end", None))
+            when, _, kind, d = min(events, key=lambda e: (e[0], e[1]))
+            if when <= horizon or rows.final:
+                break
+            n *= 2
+        if when >= s.duration_s:
+            ex.record_weak(rows, col, t_c, s.duration_s)
+            yield self._wait_until(s.duration_s)
+            ex.close_link(s.duration_s, "end")
+            return None
+        ex.record_weak(rows, col, t_c, when)
+        yield self._wait_until(when)
+        if kind == "rlf":
+            return ("rlf", when, None)
+        old_end, brk, t_new = ex.plan_handover(rows, d, d.trigger)
+        if old_end > when:
+            yield self._wait_until(min(old_end, s.duration_s))   # make-before-break re-pointing
+        if old_end >= s.duration_s:
+            ex.close_link(s.duration_s, "end")
+            return None
+        ex.switch(old_end, brk)
+        if t_new >= s.duration_s:
+            yield self._wait_until(s.duration_s)
+            return ("handover", t_new, None)
+        yield self._wait_until(t_new)
+        return ("handover", t_new, d.target)
+
+    def _loss(self, rows, col, sat, e0, horizon) -> Decision | None:
+        """First end of a serving window at which another satellite is in view."""
+        present = col >= 0
+        ends = np.unique(rows.end_s[np.flatnonzero(present), col[present]])
+        for e in np.concatenate([[e0], ends[ends > e0]]):
+            e = float(e)
+            if e > horizon or e >= self.s.duration_s:
+                return None
+            r = rows.row_at(e, self.s.period_s)
+            c = self.policy.select(rows, r, e, exclude=sat)
+            if c >= 0:
+                return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r)
+        return None

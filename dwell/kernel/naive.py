@@ -1,0 +1,176 @@
+"""The deliberately naive reference kernel: one simpy process per (terminal, policy) that wakes
+at every measurement instant and evaluates monitoring counters and the policy's per-row
+``step`` in plain Python.
+
+It implements the execution model of :mod:`.common` independently of the event kernel and
+exists for two things: the benchmark's speed ratio, and tests that the event kernel gives
+exactly the same links and handovers.  Cost: one wake-up and one Python pass over the cells in
+view per measurement instant.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import simpy
+
+from ..measure import first_row_at_or_after
+from ..policies.base import Decision, Link, Policy, Rows
+from .common import PRIORITY, Execution
+
+
+class NaiveRun:
+    def __init__(self, env: simpy.Environment, policy: Policy, execution: Execution):
+        self.env = env
+        self.policy = policy
+        self.ex = execution
+        self.s = execution.s
+        self.stream = execution.stream
+        self._block: Rows | None = None
+        self.process = env.process(self._run())
+
+    def _rows_at(self, k: int) -> tuple[Rows, int]:
+        b = self._block
+        if b is None or not (b.k0 <= k < b.k0 + b.n):
+            start = (k // self.stream.B) * self.stream.B
+            b = self._block = self.stream.rows(start, start + self.stream.B)
+        return b, k - b.k0
+
+    def _row(self, t_s: float) -> int:
+        return int(first_row_at_or_after(np.array([t_s]), self.s.period_s)[0])
+
+    def _run(self):
+        s, ex, dt = self.s, self.ex, self.s.period_s
+        K = self.stream.K
+        k, initial = 0, True
+        while k < K:
+            # ---------------- down: wait for a satellite in view
+            t_k = k * dt
+            yield self.env.timeout(t_k - self.env.now)
+            ex.rec.events += 1
+            rows, r = self._rows_at(k)
+            self.stream.release(k, self)
+            present = [j for j in range(rows.sat.shape[1]) if rows.sat[r, j] >= 0]
+            if not present:
+                k += 1
+                continue
+            col = self.policy.select(rows, r, t_k)
+            t_link = t_k if initial else t_k + s.reestablishment_s
+            if t_link >= s.duration_s:
+                break
+            yield self.env.timeout(t_link - self.env.now)
+            ex.open_link(int(rows.sat[r, col]), t_link, "initial" if initial else "reestablishment")
+            initial = False
+            # ---------------- up: serve links until a failure
+            while True:
+                outcome = yield from self._serve()
+                if outcome is None:
+                    return
+                kind, t_next, target = outcome
+                if kind == "rlf":
+                    ex.close_link(t_next, "failure")
+                    ex.rec.failures.append(t_next)
+                    k = self._row(t_next)
+                    break
+                if target is None:
+                    return
+                ex.open_link(target, t_next, "handover")
+        self.stream.release(K, self)
+
+    def _serve(self):
+        s, ex, dt = self.s, self.ex, self.s.period_s
+        sat, t_c = ex.link_sat, ex.link_start
+        kc = self._row(t_c)
+        if kc >= self.stream.K:
+            ex.close_link(s.duration_s, "end")
+            return None
+        e0 = self.stream.window_end_covering(sat, t_c)
+        losses = [t_c if e0 is None else e0]      # pending ends of serving windows
+        link = Link(sat, t_c, t_c + s.min_dwell_s, 0, losses[0])
+        self.policy.start(link)
+        oc = ic = 0
+        expiry = None
+        weak_from = len(ex.rec.weak)
+        k = kc
+        while True:
+            t_k = k * dt
+            if k >= self.stream.K:
+                when, kind, d = s.duration_s, "end", None
+                break
+            yield self.env.timeout(t_k - self.env.now)
+            ex.rec.events += 1
+            self.stream.release(kc, self)
+            rows, r = self._rows_at(k)
+            col = -1
+            for j in range(rows.sat.shape[1]):
+                if rows.sat[r, j] == sat:
+                    col = j
+            visible = col >= 0
+            snr = rows.snr_db[r, col] if visible else -math.inf
+            out_of_sync = (not visible) or snr < s.q_out_db
+            in_sync = visible and snr >= s.q_in_db
+            if visible and snr < s.q_out_db:
+                ex.rec.weak.append((t_k, t_k + dt))
+            if out_of_sync:
+                oc, ic = oc + 1, 0
+                if expiry is None and oc >= s.n310:
+                    expiry = t_k + s.t310_s
+                if link.release_s > t_k:
+                    link.release_s = t_k          # the guard lifts when the link is lost
+            elif in_sync:
+                ic, oc = ic + 1, 0
+                if expiry is not None and ic >= s.n311 and t_k < expiry:
+                    expiry, oc, ic = None, 0, 0
+            if visible and rows.end_s[r, col] not in losses:
+                losses.append(float(rows.end_s[r, col]))
+            t_next = (k + 1) * dt
+            events = []
+            d = self.policy.step(rows, r, link)
+            if d is not None and d.time_s < t_next:
+                events.append((d.time_s, PRIORITY["decision"], "decision", d))
+            if self.policy.loss_aware:
+                for e in sorted(losses):
+                    if e >= t_next or e >= s.duration_s:
+                        break
+                    losses.remove(e)
+                    re = max(int(math.floor(e / dt + 1e-9)), kc) - rows.k0
+                    c = self.policy.select(rows, re, e, exclude=sat)
+                    if c >= 0:
+                        events.append((e, PRIORITY["loss"], "loss",
+                                       Decision(e, int(rows.sat[re, c]), "loss", rows.k0 + re)))
+                        break
+            if expiry is not None and expiry < t_next:
+                events.append((expiry, PRIORITY["rlf"], "rlf", None))
+            if t_next >= s.duration_s or k + 1 >= self.stream.K:
+                events.append((s.duration_s, PRIORITY["end"], "end", None))
+            if events:
+                when, _, kind, d = min(events, key=lambda e: (e[0], e[1]))
+                if kind != "end" or when <= t_next:
+                    break
+            k += 1
+        # clip the weak-signal record to the decision instant, as the link's record ends there
+        end_rec = min(when, s.duration_s)
+        kept = [(a, min(b, end_rec)) for a, b in ex.rec.weak[weak_from:] if a < end_rec]
+        del ex.rec.weak[weak_from:]
+        ex.rec.weak.extend(kept)
+        if kind == "end" or when >= s.duration_s:
+            yield self.env.timeout(max(0.0, s.duration_s - self.env.now))
+            ex.close_link(s.duration_s, "end")
+            return None
+        yield self.env.timeout(when - self.env.now)
+        if kind == "rlf":
+            return ("rlf", when, None)
+        link_rows = self.stream.rows(kc, k + 1)
+        old_end, brk, t_new = ex.plan_handover(link_rows, d, d.trigger)
+        if old_end > when:
+            yield self.env.timeout(min(old_end, s.duration_s) - self.env.now)
+        if old_end >= s.duration_s:
+            ex.close_link(s.duration_s, "end")
+            return None
+        ex.switch(old_end, brk)
+        if t_new >= s.duration_s:
+            yield self.env.timeout(s.duration_s - self.env.now)
+            return ("handover", t_new, None)
+        yield self.env.timeout(t_new - self.env.now)
+        return ("handover", t_new, d.target)

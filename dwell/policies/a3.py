@@ -1,0 +1,209 @@
+"""3GPP event A3 with hysteresis and time-to-trigger (TS 38.331 section 5.5.4.4).
+
+Entering condition for neighbour n against the serving (primary) p, in dB of layer-3 filtered
+RSRP:  Mn + Ofn + Ocn - Hys > Mp + Ofp + Ocp + Off;  leaving:  Mn + Ofn + Ocn + Hys < Mp + Ofp + Ocp
++ Off.  All satellites share one carrier here, so Ofn = Ofp cancel; Ocn and Ocp are
+``neighbour_offset_db`` and ``serving_offset_db``, Off is ``offset_db``, Hys ``hysteresis_db``.
+
+A neighbour joins the triggered list when the entering condition holds at every measurement
+during ``time_to_trigger_s`` (sample-and-hold between measurements: with period dt it must hold
+at floor(TTT/dt)+1 consecutive measurements, and it joins at first-measurement + TTT); it leaves
+when the leaving condition holds likewise, when it is no longer measured, or when its window
+ends.  The handover goes, at the first instant at or after the minimum-dwell guard's release at
+which the list is not empty, to the strongest listed neighbour (Mn + Ocn at the latest
+measurement; ties to the lower satellite index).  With no guard this is simply the first entry.
+When the serving satellite is not measured, Mp = -inf: every measured neighbour meets the
+entering condition.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..schema import ge, number
+from . import register
+from .base import TTT_VALUES_MS, Decision, Link, Policy, Rows, held_runs, warn_if_not_in
+
+
+def ttt_rows(ttt_s: float, period_s: float) -> int:
+    """Measurements after the first that fall within the time-to-trigger."""
+    return int(math.floor(ttt_s / period_s + 1e-9))
+
+
+A3_KEYS = {
+    "offset_db": number(3.0, doc="a3-Offset (Off)"),
+    "hysteresis_db": number(1.0, ge(0), doc="hysteresis (Hys)"),
+    "time_to_trigger_s": number(0.32, ge(0), doc="timeToTrigger"),
+    "neighbour_offset_db": number(0.0, doc="cell individual offset of neighbours (Ocn)"),
+    "serving_offset_db": number(0.0, doc="cell individual offset of the serving cell (Ocp)"),
+}
+
+
+@register
+class EventA3(Policy):
+    rule = "a3"
+    KEYS = A3_KEYS
+
+    def __init__(self, params, period_s):
+        super().__init__(params, period_s)
+        p = params
+        self.off, self.hys = float(p["offset_db"]), float(p["hysteresis_db"])
+        self.ocn, self.ocp = float(p["neighbour_offset_db"]), float(p["serving_offset_db"])
+        self.ttt = float(p["time_to_trigger_s"])
+        self.m = ttt_rows(self.ttt, self.period_s)
+        self.lookahead_rows = self.m
+
+    @classmethod
+    def check(cls, params, source, where, warn):
+        super().check(params, source, where, warn)
+        warn_if_not_in(params["time_to_trigger_s"], TTT_VALUES_MS, source,
+                       f"{where}.time_to_trigger_s", warn)
+
+    def score(self, rows, r):
+        return np.nan_to_num(rows.rsrp_dbm[r], nan=-np.inf)
+
+    def expiry(self, t_begin: np.ndarray, t_last: np.ndarray) -> np.ndarray:
+        """Timer expiry: first measurement + TTT, never before the last measurement it needs."""
+        return np.maximum(t_begin + self.ttt, t_last)
+
+    # ---- vectorised ----------------------------------------------------------------------------
+    def _conditions(self, rows: Rows, link: Link):
+        col = rows.column_of(link.sat)
+        rr = np.arange(rows.n)
+        mp = np.where(col >= 0, rows.rsrp_dbm[rr, np.maximum(col, 0)], -np.inf)
+        rhs = (mp + self.ocp + self.off)[:, None]
+        lhs = rows.rsrp_dbm + self.ocn
+        measured = (rows.sat >= 0) & (rows.sat != link.sat)
+        measured[:link.r_start] = False
+        with np.errstate(invalid="ignore"):
+            enter = measured & (lhs - self.hys > rhs)
+            leave = measured & (lhs + self.hys < rhs)
+        return measured, enter, leave, np.where(measured, lhs, -np.inf)
+
+    def scan(self, rows: Rows, link: Link) -> Decision | None:
+        measured, enter, leave, lhs = self._conditions(rows, link)
+        m = self.m
+        n = rows.n
+        eb = held_runs(enter, rows.win, m)
+        a, j = np.nonzero(eb)
+        if a.size == 0:
+            return None
+        tau = self.expiry(rows.t_s[a], rows.t_s[a + m])
+        ok = tau < rows.end_s[a, j]
+        a, j, tau = a[ok], j[ok], tau[ok]
+        if a.size == 0:
+            return None
+        g = link.release_s
+        if g <= tau.min():
+            t_ho = float(tau.min())
+            cand = j[tau == t_ho]
+            return self._pick(rows, lhs, cand, t_ho)
+        # guard still on at the first entries: follow list memberships cell by cell
+        lb = held_runs(leave, rows.win, m)
+        best_t, best_cells = math.inf, []
+        cells = {}
+        for aa, jj, tt in zip(a.tolist(), j.tolist(), tau.tolist()):
+            cells.setdefault((jj, int(rows.win[aa, jj])), []).append((aa, tt))
+        for (jj, w), entries in cells.items():
+            rows_w = np.flatnonzero(rows.win[:, jj] == w)
+            end_w = float(rows.end_s[rows_w[0], jj])
+            leave_rows = np.flatnonzero(lb[:, jj] & (rows.win[:, jj] == w))
+            k_free = -1          # an entry must begin after the last leave's measurements
+            for aa, tt in entries:
+                if aa <= k_free:
+                    continue
+                later = leave_rows[leave_rows > aa + m]
+                if later.size:
+                    b = int(later[0])
+                    lam = float(self.expiry(rows.t_s[b], rows.t_s[b + m]))
+                    lam = min(lam, end_w)
+                else:
+                    b, lam = n, end_w
+                x = max(tt, g)
+                if x < lam:
+                    if x < best_t:
+                        best_t, best_cells = x, [jj]
+                    elif x == best_t:
+                        best_cells.append(jj)
+                    break
+                if b >= n:
+                    break
+                k_free = b + m
+        if not best_cells:
+            return None
+        return self._pick(rows, lhs, np.array(best_cells), best_t)
+
+    def _pick(self, rows: Rows, lhs: np.ndarray, cols: np.ndarray, t_ho: float) -> Decision:
+        r = rows.row_at(t_ho, self.period_s)
+        vals = lhs[r, cols]
+        top = cols[vals == vals.max()]
+        c = int(top[np.argmin(rows.sat[r, top])])
+        return Decision(t_ho, int(rows.sat[r, c]), "a3", rows.k0 + r)
+
+    # ---- naive reference -----------------------------------------------------------------------
+    def step(self, rows: Rows, r: int, link: Link) -> Decision | None:
+        st = link.state.setdefault("cells", {})
+        # window id -> [E-run first row, listed, enter time, L-run first row, leave time];
+        # rows are absolute indices (naive reads rows block by block)
+        k = rows.k0 + r
+        dt = self.period_s
+        col_p = -1
+        for jj in range(rows.sat.shape[1]):
+            if rows.sat[r, jj] == link.sat:
+                col_p = jj
+        mp = rows.rsrp_dbm[r, col_p] if col_p >= 0 else -math.inf
+        rhs = mp + self.ocp + self.off
+        seen = set()
+        for jj in range(rows.sat.shape[1]):
+            s = int(rows.sat[r, jj])
+            if s < 0 or s == link.sat or r < link.r_start:
+                continue
+            w = int(rows.win[r, jj])
+            seen.add(w)
+            c = st.setdefault(w, [None, False, None, None, None])
+            lhs = rows.rsrp_dbm[r, jj] + self.ocn
+            if not c[1]:
+                if lhs - self.hys > rhs:
+                    if c[0] is None:
+                        c[0] = k
+                    if k - c[0] == self.m:
+                        tau = max(c[0] * dt + self.ttt, rows.t_s[r])
+                        if tau < rows.end_s[r, jj]:
+                            c[1], c[2], c[3], c[4] = True, tau, None, None
+                        c[0] = None
+                else:
+                    c[0] = None
+            else:
+                if lhs + self.hys < rhs:
+                    if c[3] is None:
+                        c[3] = k
+                    if k - c[3] == self.m:
+                        c[4] = max(c[3] * dt + self.ttt, rows.t_s[r])   # leaves at this instant
+                else:
+                    c[3] = None
+        for w in [w for w in st if w not in seen]:
+            del st[w]
+        t_next = (k + 1) * dt
+        best_t, best = math.inf, []
+        for jj in range(rows.sat.shape[1]):
+            w = int(rows.win[r, jj])
+            if rows.sat[r, jj] < 0 or w not in st or not st[w][1]:
+                continue
+            c = st[w]
+            leave_at = min(rows.end_s[r, jj], c[4] if c[4] is not None else math.inf)
+            x = max(c[2], link.release_s)
+            if x < leave_at and x < t_next:
+                if x < best_t:
+                    best_t, best = x, [jj]
+                elif x == best_t:
+                    best.append(jj)
+            if c[4] is not None:      # the leave takes effect once this interval is judged
+                c[1], c[3], c[4] = False, None, None
+        if not best:
+            return None
+        top_v = max(rows.rsrp_dbm[r, jj] + self.ocn for jj in best)
+        top = [jj for jj in best if rows.rsrp_dbm[r, jj] + self.ocn == top_v]
+        jj = min(top, key=lambda q: rows.sat[r, q])
+        return Decision(best_t, int(rows.sat[r, jj]), "a3", rows.k0 + r)
