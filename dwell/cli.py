@@ -47,6 +47,11 @@ class Progress:
         if self.enabled:
             click.echo(f"\r{self.label}: {done}/{total}", err=True, nl=done >= total)
 
+    def hours(self, done_s: float, total_s: float) -> None:
+        if self.enabled:
+            click.echo(f"\r{self.label}: {done_s / 3600:.1f}/{total_s / 3600:.1f}", err=True,
+                       nl=done_s >= total_s)
+
 
 @click.group()
 @click.version_option(__version__, prog_name="dwell")
@@ -81,6 +86,29 @@ def passes(config: Path, out: Path) -> None:
         "max_duration_s": "max dur s", "mean_in_view": "mean in view",
         "none_in_view_fraction": "none in view"}))
     geo.close()
+
+
+@main.command()
+@click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for the run's tables (replaced atomically).")
+@click.option("--kernel", type=click.Choice(["fast", "naive"]), default="fast", show_default=True,
+              help="Event kernel, or the per-measurement reference (slow; for checking).")
+@click.option("--check/--no-check", default=False, help="Verify accounting invariants.")
+@guarded
+def run(config: Path, out: Path, kernel: str, check: bool) -> None:
+    """Run every terminal under every policy; write tables to a folder."""
+    from .config import load_scenario
+    from .run import execute, summary_text
+
+    scen = load_scenario(config, warn=_warn)
+    if not scen.policies:
+        raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
+                         show_value=False)
+    tables = execute(scen, out, kernel=kernel, check=check, warn=_warn,
+                     progress=Progress("simulated hours", None).hours)
+    click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
+    click.echo(f"tables -> {out}")
 
 
 def format_table(df, columns: dict[str, str], digits: int = 3) -> str:

@@ -1,0 +1,138 @@
+"""Summary statistics per terminal x policy, with confidence intervals.
+
+Intervals (95 %):
+
+- handover, ping-pong and failure rates: exact Poisson (Garwood) intervals on the counts
+  (:func:`dwell.analytic.poisson_rate_interval`); handovers are not exactly Poisson, so read
+  them as indicative;
+- mean dwell and outage fraction: percentile bootstrap over clock hours of the scenario
+  (``scipy.stats.bootstrap``, resampling whole hours keeps the within-hour correlation),
+  with a fixed random state so results repeat.
+
+Dwell statistics use completed links only (neither started by initial access nor cut by the
+scenario's end) when there are any.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from ..analytic import poisson_rate_interval
+from . import intervals as iv
+
+CCDF_POINTS = 200
+
+
+def _hour_bins(duration_s: float) -> np.ndarray:
+    return np.arange(0.0, duration_s + 3600.0 - 1e-9, 3600.0)[: max(2, math.ceil(duration_s / 3600) + 1)]
+
+
+def _bootstrap_ratio(num: np.ndarray, den: np.ndarray, seed: int) -> tuple[float, float]:
+    """95 % percentile-bootstrap interval of sum(num)/sum(den) over resampled units."""
+    ok = den > 0
+    if ok.sum() < 3 or np.all(num[ok] == num[ok][0]) and np.all(den[ok] == den[ok][0]):
+        return math.nan, math.nan
+    res = stats.bootstrap((num, den), lambda a, b: np.sum(a, axis=-1) / np.sum(b, axis=-1),
+                          paired=True, vectorized=True, n_resamples=999, method="percentile",
+                          confidence_level=0.95, random_state=np.random.default_rng(seed))
+    return float(res.confidence_interval.low), float(res.confidence_interval.high)
+
+
+def _per_hour_overlap(a: np.ndarray, b: np.ndarray, edges: np.ndarray) -> np.ndarray:
+    """Time of intervals [a, b) inside each hour bin."""
+    out = np.zeros(edges.size - 1)
+    for i in range(edges.size - 1):   # one pass per hour (tens), intervals vectorised
+        out[i] = np.sum(np.clip(np.minimum(b, edges[i + 1]) - np.maximum(a, edges[i]), 0, None))
+    return out
+
+
+def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFrame,
+              visible: pd.DataFrame, budget: dict[str, float], duration_s: float,
+              failures: int, preparing: list[tuple], seed: int) -> dict:
+    """One summary row for one run (see the module docstring for the intervals)."""
+    hours = duration_s / 3600.0
+    n_ho = int(len(handovers))
+    ho_lo, ho_hi = poisson_rate_interval(n_ho, hours)
+    edges = _hour_bins(duration_s)
+    hour_len = np.diff(np.minimum(edges, duration_s))
+    t_ho = handovers["time_utc"].to_numpy(dtype=float)
+    per_hour = np.histogram(t_ho, bins=edges)[0] if n_ho else np.zeros(edges.size - 1)
+    full = hour_len >= 3600.0 - 1e-6
+    worst = int(per_hour[full].max()) if full.any() else int(per_hour.max(initial=0))
+
+    complete = links[(links["start_reason"] != "initial") & (links["end_reason"] != "end")]
+    dw = (complete if len(complete) else links)["dwell_s"].to_numpy(dtype=float)
+    d_start = (complete if len(complete) else links)["start_utc"].to_numpy(dtype=float)
+    if dw.size:
+        h = np.clip(np.searchsorted(edges, d_start, side="right") - 1, 0, edges.size - 2)
+        dsum = np.bincount(h, weights=dw, minlength=edges.size - 1)
+        dcnt = np.bincount(h, minlength=edges.size - 1).astype(float)
+        dw_lo, dw_hi = _bootstrap_ratio(dsum, dcnt, seed)
+        q5, q50, q95 = np.percentile(dw, [5, 50, 95])
+    else:
+        dw_lo = dw_hi = q5 = q50 = q95 = math.nan
+
+    real = outages[outages["cause"] != "switching"]
+    oa = real["start_utc"].to_numpy(dtype=float)
+    ob = real["end_utc"].to_numpy(dtype=float)
+    out_s = float(np.sum(ob - oa))
+    per_hour_out = _per_hour_overlap(oa, ob, edges)
+    o_lo, o_hi = _bootstrap_ratio(per_hour_out, hour_len, seed + 1)
+    n_pp = int(handovers["ping_pong"].sum()) if n_ho else 0
+    pp_lo, pp_hi = poisson_rate_interval(n_pp, hours)
+    slew = handovers["slew_angle_deg"].to_numpy(dtype=float)
+    prep_s = float(sum(b - a for a, b in preparing))
+    rep = handovers["repoint_s"].to_numpy(dtype=float)
+    need = 1 + iv.max_overlap(t_ho, t_ho + rep) if n_ho else 1
+    vis_dur = visible["duration_s"].to_numpy(dtype=float)
+    vis_n = visible["in_view"].to_numpy(dtype=float)
+    row = {
+        "duration_h": hours,
+        "handovers": n_ho,
+        "handovers_per_hour": n_ho / hours,
+        "handovers_per_hour_lo": ho_lo, "handovers_per_hour_hi": ho_hi,
+        "worst_hour_handovers": worst,
+        "links": int(len(links)),
+        "dwell_mean_s": float(dw.mean()) if dw.size else math.nan,
+        "dwell_mean_lo_s": dw_lo, "dwell_mean_hi_s": dw_hi,
+        "dwell_median_s": float(q50), "dwell_p5_s": float(q5), "dwell_p95_s": float(q95),
+        "outage_fraction": out_s / duration_s,
+        "outage_fraction_lo": o_lo, "outage_fraction_hi": o_hi,
+        "outage_events": int(len(real)),
+        "outage_mean_s": float((ob - oa).mean()) if oa.size else 0.0,
+        "outage_max_s": float((ob - oa).max()) if oa.size else 0.0,
+        "ping_pongs": n_pp,
+        "ping_pong_rate": n_pp / n_ho if n_ho else 0.0,
+        "ping_pong_per_hour_lo": pp_lo, "ping_pong_per_hour_hi": pp_hi,
+        "radio_link_failures": int(failures),
+        "serving_s": budget["serving_s"], "switching_s": budget["switching_s"],
+        "outage_s": out_s,
+        "switching_fraction": budget["switching_s"] / duration_s,
+        "slew_mean_deg": float(slew.mean()) if slew.size else 0.0,
+        "slew_p95_deg": float(np.percentile(slew, 95)) if slew.size else 0.0,
+        "slew_max_deg": float(slew.max()) if slew.size else 0.0,
+        "mbb_overlap_fraction": prep_s / duration_s,
+        "mbb_apertures_needed": int(need),
+        "mean_in_view": float(np.sum(vis_dur * vis_n) / duration_s),
+        "none_in_view_fraction": float(np.sum(vis_dur[vis_n == 0]) / duration_s),
+    }
+    for cause in ("no-satellite", "obstruction", "weak-signal", "failure"):
+        sel = real["cause"] == cause
+        row[f"outage_{cause.replace('-', '_')}_fraction"] = float(
+            (real.loc[sel, "end_utc"] - real.loc[sel, "start_utc"]).sum() / duration_s)
+    return row
+
+
+def dwell_ccdf(links: pd.DataFrame) -> pd.DataFrame:
+    """Empirical complementary CDF of dwell, P(dwell > x), on up to CCDF_POINTS points."""
+    complete = links[(links["start_reason"] != "initial") & (links["end_reason"] != "end")]
+    dw = np.sort((complete if len(complete) else links)["dwell_s"].to_numpy(dtype=float))
+    if dw.size == 0:
+        return pd.DataFrame({"dwell_s": [], "ccdf": []})
+    x = np.unique(np.quantile(dw, np.linspace(0, 1, min(CCDF_POINTS, dw.size))))
+    ccdf = 1.0 - np.searchsorted(dw, x, side="right") / dw.size
+    return pd.DataFrame({"dwell_s": x, "ccdf": ccdf})

@@ -1,0 +1,142 @@
+"""A whole run: geometry, every terminal under every policy, tables, invariants, one folder.
+
+The output folder holds ``passes``, ``links``, ``handovers``, ``outages``, ``visible``,
+``summary`` and ``dwell_ccdf`` as Parquet (one file each, with provenance metadata),
+``summary.txt``, and ``run.toml``, the fully resolved configuration that repeats the run.
+The folder is built under a temporary name and renamed into place when complete, so it is
+either whole or absent.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+import tomli_w
+
+from .analysis.records import SiteCoverage, handovers_frame, links_frame, outages_frame
+from .analysis.summary import dwell_ccdf, summarize
+from .atomic import atomic_dir
+from .config import Scenario
+from .kernel import RunResult, run_scenario
+from .outputs import passes_frame, visible_frame
+from .tables import write_frame
+
+TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf")
+
+
+class InvariantError(AssertionError):
+    """A run broke one of the accounting invariants (a bug, not bad input)."""
+
+
+@dataclass
+class RunTables:
+    frames: dict[str, pd.DataFrame]
+    results: list[RunResult]
+
+
+def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool = False
+                 ) -> RunTables:
+    names = scen.constellation.names
+    passes = passes_frame(geo)
+    visible = visible_frame(geo)
+    cov = {}
+    for k in range(len(geo.sites)):
+        cov[k] = SiteCoverage(geo.window_frame(k), geo.window_frame(k, floor_passes=True),
+                              geo.duration_s)
+    links, hos, outs, rows, ccdfs = [], [], [], [], []
+    for res in results:
+        lf = links_frame(res, names)
+        hf = handovers_frame(res, names)
+        of, budget = outages_frame(res, cov[res.site_index])
+        vis = visible[visible["terminal"] == res.terminal]
+        row = {"terminal": res.terminal, "policy": res.policy}
+        row.update(summarize(lf, hf, of, vis, budget, geo.duration_s,
+                             len(res.records.failures), res.records.preparing, scen.seed))
+        if check:
+            check_invariants(res, lf, hf, of, budget, row, cov[res.site_index], geo.duration_s)
+        c = dwell_ccdf(lf)
+        c.insert(0, "policy", res.policy)
+        c.insert(0, "terminal", res.terminal)
+        links.append(lf.drop(columns=["sat_index"]))
+        hos.append(hf)
+        outs.append(of)
+        rows.append(row)
+        ccdfs.append(c)
+    frames = {
+        "passes": passes.drop(columns=["rise_s", "set_s"]),
+        "links": pd.concat(links, ignore_index=True),
+        "handovers": pd.concat(hos, ignore_index=True),
+        "outages": pd.concat(outs, ignore_index=True),
+        "visible": visible,
+        "summary": pd.DataFrame(rows),
+        "dwell_ccdf": pd.concat(ccdfs, ignore_index=True),
+    }
+    return RunTables(frames, results)
+
+
+def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, outs: pd.DataFrame,
+                     budget: dict, row: dict, cov: SiteCoverage, duration_s: float) -> None:
+    """The accounting every run must satisfy; raises InvariantError naming the run."""
+    who = f"{res.terminal}/{res.policy}"
+    tol = 1e-6 * max(1.0, duration_s)
+    total = budget["serving_s"] + budget["switching_s"] + budget["outage_s"]
+    if abs(total - duration_s) > tol:
+        raise InvariantError(f"{who}: serving + switching + outage = {total} != {duration_s}")
+    if abs(outs["duration_s"].sum() - budget["switching_s"] - budget["outage_s"]) > tol:
+        raise InvariantError(f"{who}: outage rows do not add up to the outage budget")
+    for ap, g in links.groupby("aperture"):
+        s = g["start_utc"].to_numpy()
+        e = g["end_utc"].to_numpy()
+        order = np.argsort(s)
+        if np.any(s[order][1:] < e[order][:-1] - 1e-9):
+            raise InvariantError(f"{who}: overlapping links on aperture {ap}")
+    for t, to in zip(hos["time_utc"].to_numpy(), [h[2] for h in res.records.handovers]):
+        wa, wb = cov.win_by_sat.get(int(to), (np.zeros(0), np.zeros(0)))
+        if not np.any((wa <= t) & (t < wb)):
+            raise InvariantError(f"{who}: handover at {t} s to a satellite not in view")
+    if row["handovers"] != len(hos) or row["links"] != len(links):
+        raise InvariantError(f"{who}: summary counts differ from the tables")
+
+
+def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
+    from .cli import format_table
+    cols = {"terminal": "terminal", "policy": "policy", "handovers_per_hour": "HO/h",
+            "worst_hour_handovers": "worst h", "dwell_mean_s": "dwell mean s",
+            "dwell_median_s": "dwell med s", "outage_fraction": "outage",
+            "ping_pong_rate": "ping-pong", "radio_link_failures": "RLF",
+            "slew_mean_deg": "slew deg", "switching_s": "switch s"}
+    head = (f"scenario {scen.scenario['name']}: {len(scen.constellation)} satellites, "
+            f"{len(scen.terminals)} terminals, {len(scen.policies)} policies, "
+            f"{float(scen.scenario['duration_s']) / 3600:g} h from {scen.scenario['start']}")
+    return head + "\n" + format_table(summary, cols) + "\n"
+
+
+def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
+            progress: Callable[[float, float], None] | None = None,
+            warn: Callable[[str], None] | None = None) -> RunTables:
+    """Run a scenario and write its folder atomically."""
+    results, geo = run_scenario(scen, kernel=kernel, progress=progress, warn=warn)
+    tables = build_tables(scen, results, geo, check=check)
+    geo.close()
+    write_run_folder(scen, tables, out_dir)
+    return tables
+
+
+def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> None:
+    with atomic_dir(out_dir) as tmp:
+        for name in TABLES:
+            write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
+        (tmp / "run.toml").write_text(run_toml(scen))
+        (tmp / "summary.txt").write_text(summary_text(scen, tables.frames["summary"]))
+
+
+def run_toml(scen: Scenario) -> str:
+    head = ("# Fully resolved configuration of this run: `dwell run run.toml -o DIR` repeats it.\n"
+            f"# config sha256 {scen.config_hash()}\n")
+    return head + tomli_w.dumps(scen.resolved())
+
+
