@@ -251,3 +251,36 @@ def poisson_rate_interval(count: int | np.ndarray, exposure: np.ndarray | float,
     lower = np.where(k > 0, chi2.ppf(alpha / 2.0, 2.0 * np.maximum(k, 1.0)) / 2.0, 0.0)
     upper = chi2.ppf(1.0 - alpha / 2.0, 2.0 * k + 2.0) / 2.0
     return lower / exposure, upper / exposure
+
+
+def mean_excess_height_m(law: str, mean_m: float, antenna_height_m: float, *, sigma: float = 0.5,
+                         shape: float = 2.5, values=None, weights=None) -> float:
+    """E[(H - h)+] for the building-height laws of the street-canyon generator (closed forms).
+
+    exponential: mean exp(-h/mean); deterministic: (H0 - h)+; lognormal with E[H] = mean and
+    log-sd sigma: mean Phi(d1) - h Phi(d2), d1 = (mu + sigma^2 - ln h) / sigma, d2 = d1 - sigma,
+    mu = ln(mean) - sigma^2/2 (the partial expectation of a lognormal, as in option pricing);
+    Pareto type I with tail index a and scale x_m = mean (a-1)/a: mean - h for h <= x_m, else
+    x_m^a h^(1-a) / (a - 1); empirical: the weighted average of (v - h)+.
+    """
+    from scipy.stats import norm
+
+    h = float(antenna_height_m)
+    if law == "exponential":
+        return mean_m * float(np.exp(-max(h, 0.0) / mean_m)) if h > 0 else mean_m - h
+    if law == "deterministic":
+        return max(mean_m - h, 0.0)
+    if law == "lognormal":
+        if h <= 0:
+            return mean_m - h
+        mu = np.log(mean_m) - sigma ** 2 / 2
+        d1 = (mu + sigma ** 2 - np.log(h)) / sigma
+        return float(mean_m * norm.cdf(d1) - h * norm.cdf(d1 - sigma))
+    if law == "pareto":
+        xm = mean_m * (shape - 1.0) / shape
+        return mean_m - h if h <= xm else float(xm ** shape * h ** (1 - shape) / (shape - 1))
+    if law == "empirical":
+        v = np.asarray(values, dtype=float)
+        w = np.ones_like(v) if weights is None else np.asarray(weights, dtype=float)
+        return float(np.sum(w * np.clip(v - h, 0, None)) / np.sum(w))
+    raise ValueError(f"unknown law {law!r}")

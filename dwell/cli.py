@@ -111,6 +111,83 @@ def run(config: Path, out: Path, kernel: str, check: bool) -> None:
     click.echo(f"tables -> {out}")
 
 
+@main.command()
+@click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--terminal", "terminal", required=True, help="Name of a terminal with a canyon or mask.")
+@click.option("-o", "--output", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="CSV file (azimuth_deg,elevation_deg); a PNG plot is written beside it.")
+@click.option("--step-deg", default=0.5, show_default=True, type=click.FloatRange(0.01, 10),
+              help="Azimuth step of the exported mask.")
+@click.option("--at-s", default=0.0, show_default=True, type=float,
+              help="Scenario time (s) of the export, for a terminal that drives.")
+@guarded
+def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float) -> None:
+    """Export the elevation mask a terminal sees (one realisation of its canyon)."""
+    import numpy as np
+
+    from .atomic import write_text
+    from .config import load_scenario
+    from .plots import mask_plot
+
+    scen = load_scenario(config, warn=_warn)
+    names = scen.terminal_names()
+    if terminal not in names:
+        raise InputError(str(config), "--terminal", terminal,
+                         "no such terminal (known: " + ", ".join(names) + ")")
+    site = scen.sites[names.index(terminal)]
+    if not site.obstructions:
+        raise InputError(str(config), "--terminal", terminal, "this terminal has no mask or canyon")
+    az = np.arange(0.0, 360.0, step_deg)
+    el = np.maximum(site.mask_deg(az, np.full(az.shape, float(at_s))), 0.0)
+    lines = ["azimuth_deg,elevation_deg"] + [f"{a:.4f},{e:.4f}" for a, e in zip(az, el)]
+    write_text(out, "\n".join(lines) + "\n")
+    png = out.with_suffix(".png")
+    mask_plot(az, el, site.floor_deg, f"{terminal}: elevation mask", png)
+    click.echo(f"mask of {terminal} ({az.size} azimuths, max {el.max():.1f} deg) -> {out}, {png}")
+
+
+@main.command()
+@click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
+@guarded
+def compare(outdir: Path) -> None:
+    """Compare a run's simulated values with analytic formulas (where they apply)."""
+    from .atomic import write_text
+    from .compare import compare_run, format_comparison
+    from .tables import write_frame
+
+    _need(outdir, "run.toml")
+    df = compare_run(outdir)
+    text = format_comparison(df)
+    write_text(outdir / "comparison.txt", text)
+    write_frame(df, outdir / "comparison.parquet")
+    click.echo(text, nl=False)
+
+
+@main.command()
+@click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
+@click.option("--terminal", default=None, help="Terminal for the timeline and sky view (default: last).")
+@click.option("--hour", default=0, show_default=True, type=click.IntRange(0),
+              help="Hour of the scenario for the timeline and sky view.")
+@click.option("--policy", default=None, help="Policy whose serving segments the sky view draws.")
+@guarded
+def plot(outdir: Path, terminal: str | None, hour: int, policy: str | None) -> None:
+    """Draw a run's (or a sweep's) figures as PNG files in OUTDIR/plots."""
+    if (outdir / "sweep.toml").exists():
+        from .sweep.plots import plot_sweep
+        files = plot_sweep(outdir)
+    else:
+        from .report import plot_run
+        _need(outdir, "run.toml")
+        files = plot_run(outdir, terminal, hour, policy)
+    for f in files:
+        click.echo(f"wrote {f}")
+
+
+def _need(outdir: Path, name: str) -> None:
+    if not (outdir / name).is_file():
+        raise InputError(str(outdir), None, None, f"not a dwell run folder (no {name})")
+
+
 def format_table(df, columns: dict[str, str], digits: int = 3) -> str:
     """Plain aligned text table of chosen columns (header labels from ``columns``)."""
     heads = list(columns.values())

@@ -45,6 +45,16 @@ def first_row_at_or_after(t_s: np.ndarray, period_s: float) -> np.ndarray:
     return np.where(k * period_s < t_s, k + 1, k)
 
 
+def row_at_or_after(t_s: float, period_s: float) -> int:
+    """Scalar :func:`first_row_at_or_after`."""
+    k = math.ceil(t_s / period_s)
+    if (k - 1) * period_s >= t_s:
+        k -= 1
+    if k * period_s < t_s:
+        k += 1
+    return k
+
+
 class MeasurementStream:
     """Measurement rows of one terminal, built lazily in blocks."""
 
@@ -58,7 +68,7 @@ class MeasurementStream:
         self.period_s = float(period_s)
         self.seed = int(seed)
         self.K = row_count(geo.duration_s, self.period_s)
-        self.B = int(block_rows or max(64, math.ceil(600.0 / self.period_s)))
+        self.B = int(block_rows or max(64, math.ceil(900.0 / self.period_s)))
         self.alpha = linkmod.l3_alpha(int(self.lp["l3_filter_k"]), self.period_s,
                                       float(self.lp["l1_period_s"]))
         self.rho_shadow = self.model.shadowing_rho(self.period_s)
@@ -66,7 +76,10 @@ class MeasurementStream:
         self.nlos_db = None if los is None or los.blocks else float(los.nlos_loss_db)
         self.rho_nlos = (los_mod.lag_correlation(self.period_s, los.decorrelation_s)
                          if self.nlos_db is not None else 0.0)
-        self.blocks: dict[int, dict[str, np.ndarray]] = {}
+        self.buf: dict[str, np.ndarray] = {}
+        self.buf_t = np.zeros(0)
+        self.buf_k0 = 0                   # row index of the buffer's first row
+        self.built_rows = 0
         self.built = -1
         self.pin = 0                      # rows below this may be dropped
         self._readers: dict[int, int] = {}
@@ -80,52 +93,53 @@ class MeasurementStream:
         return k * self.period_s
 
     def rows(self, k_a: int, k_b: int) -> Rows:
-        """Rows k_a .. k_b-1 (clipped to the scenario); blocks are built as needed."""
+        """Rows k_a .. k_b-1 (clipped to the scenario), as views of the stream's buffer."""
         k_a = max(0, k_a)
         k_b = min(self.K, max(k_b, k_a + 1))
-        b_a, b_b = k_a // self.B, (k_b - 1) // self.B
-        while self.built < b_b:
+        while self.built_rows < k_b:
             self._build(self.built + 1)
-        parts = []
-        for b in range(b_a, b_b + 1):
-            if b not in self.blocks:
-                raise RuntimeError(f"measurement block {b} was dropped before it was read")
-            blk = self.blocks[b]
-            lo = max(k_a - b * self.B, 0)
-            hi = min(k_b - b * self.B, blk["sat"].shape[0])
-            parts.append({f: blk[f][lo:hi] for f in FIELDS})
-        width = max(p["sat"].shape[1] for p in parts)
-        cat = {}
-        for f in FIELDS:
-            arrs = []
-            for p in parts:
-                a = p[f]
-                if a.shape[1] < width:
-                    fill = -1 if a.dtype.kind == "i" else np.nan
-                    a = np.concatenate([a, np.full((a.shape[0], width - a.shape[1]), fill,
-                                                   dtype=a.dtype)], axis=1)
-                arrs.append(a)
-            cat[f] = arrs[0] if len(arrs) == 1 else np.concatenate(arrs, axis=0)
-        t = np.arange(k_a, k_b) * self.period_s
+        if k_a < self.buf_k0:
+            raise RuntimeError(f"measurement rows from {k_a} were dropped before they were read")
+        lo, hi = k_a - self.buf_k0, k_b - self.buf_k0
+        v = {f: self.buf[f][lo:hi] for f in FIELDS}
         final = k_b >= self.K
-        return Rows(k_a, t, cat["sat"], cat["win"], cat["rsrp_dbm"], cat["snr_db"],
-                    cat["elevation_deg"], cat["azimuth_deg"], cat["range_km"], cat["nadir_km"],
-                    cat["start_s"], cat["end_s"],
+        t = self.buf_t[lo:hi]
+        return Rows(k_a, t, v["sat"], v["win"], v["rsrp_dbm"], v["snr_db"], v["elevation_deg"],
+                    v["azimuth_deg"], v["range_km"], v["nadir_km"], v["start_s"], v["end_s"],
                     certain_until_s=math.inf if final else float(t[-1]), final=final)
 
     def release(self, k: int, reader: object = None) -> None:
-        """``reader`` no longer needs rows before k; blocks every reader has passed are dropped."""
+        """``reader`` no longer needs rows before k; rows every reader has passed may go."""
         if reader is not None:
             self._readers[id(reader)] = k
-        if self._readers:
-            self.pin = min(self._readers.values())
-        else:
-            self.pin = max(self.pin, k)
-        for b in [b for b in self.blocks if (b + 1) * self.B <= self.pin]:
-            del self.blocks[b]
+        self.pin = min(self._readers.values()) if self._readers else max(self.pin, k)
+
+    def _append(self, blk: dict[str, np.ndarray], k_a: int, k_b: int) -> None:
+        """Keep rows from the pin on, then add the new block (one copy of the kept part)."""
+        keep = max(0, min(self.pin, k_a) - self.buf_k0)
+        width = max(blk["sat"].shape[1], self.buf["sat"].shape[1] if self.buf else 0)
+        out = {}
+        for f in FIELDS:
+            parts = [self.buf[f][keep:]] if self.buf else []
+            parts.append(blk[f])
+            fill = -1 if blk[f].dtype.kind == "i" else np.nan
+            parts = [p if p.shape[1] == width else np.concatenate(
+                [p, np.full((p.shape[0], width - p.shape[1]), fill, dtype=p.dtype)], axis=1)
+                for p in parts]
+            out[f] = parts[0] if len(parts) == 1 else np.concatenate(parts, axis=0)
+        self.buf_t = np.concatenate([self.buf_t[keep:], np.arange(k_a, k_b) * self.period_s])
+        self.buf = out
+        self.buf_k0 += keep
+        self.built_rows = k_b
 
     def window_end_covering(self, sat: int, t_s: float) -> float | None:
         """End of ``sat``'s visibility window open at ``t_s``, or None if it is not in view."""
+        k = row_at_or_after(t_s, self.period_s)
+        if k < self.K:
+            row = self.rows(k, k + 1)
+            hit = np.flatnonzero(row.sat[0] == sat)
+            if hit.size and row.start_s[0, hit[0]] <= t_s:
+                return float(row.end_s[0, hit[0]])   # the window open at row k covers t_s too
         geo = self.geo
         geo.chunk_windows(geo.sky.chunk_index(t_s))
         idx = geo.index[self.k_site]
@@ -186,9 +200,8 @@ class MeasurementStream:
             blk["end_s"][rows, cols] = idx.end_s[w_of]
             for f, v in vals.items():
                 blk[f][rows, cols] = v
-        self.blocks[b] = blk
+        self._append(blk, k_a, k_b)
         self.built = b
-        self.release(self.pin)
         ended = self.geo.index[self.k_site].end_s
         for store in (self._carry_filter, self._carry_shadow, self._carry_nlos):
             for w in [w for w in store if ended[w] <= k_b * dt]:
@@ -198,16 +211,16 @@ class MeasurementStream:
         """Geometry and link values of (satellite, window, row) pairs sorted by window, row."""
         geo = self.geo
         t = k * self.period_s
-        r_sat, v_sat = geo.sky.states(sat, t)
-        uk, inv = np.unique(k, return_inverse=True)
-        pos, vel, basis = self.site.teme(uk * self.period_s, geo.earth)
-        pos, vel, basis = pos[inv], vel[inv], basis[inv]
-        lk = look(r_sat, v_sat, pos, vel, basis)
+        r_sat, _ = geo.sky.states(sat, t, velocity=False)
+        k0 = int(k.min())
+        pos, _, basis = self.site.teme(np.arange(k0, int(k.max()) + 1) * self.period_s, geo.earth)
+        pos, basis = pos[k - k0], basis[k - k0]
+        lk = look(r_sat, None, pos, None, basis)
         off = linkmod.off_boresight_deg(r_sat, pos)
         cosg = np.einsum("ij,ij->i", r_sat, pos) / (np.linalg.norm(r_sat, axis=1) *
                                                      np.linalg.norm(pos, axis=1))
         nadir_km = np.arccos(np.clip(cosg, -1.0, 1.0)) * MEAN_EARTH_RADIUS_KM
-        bud = self.model.budget(lk["range_km"], lk["elevation_deg"], off, lk["range_rate_km_s"])
+        bud = self.model.budget(lk["range_km"], lk["elevation_deg"], off)
         rsrp = bud["rsrp_dbm"].copy()
         snr = bud["snr_db"].copy()
         seg_start = np.ones(win.size, bool)

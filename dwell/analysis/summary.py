@@ -36,7 +36,7 @@ def _bootstrap_ratio(num: np.ndarray, den: np.ndarray, seed: int) -> tuple[float
     ok = den > 0
     if ok.sum() < 3 or np.all(num[ok] == num[ok][0]) and np.all(den[ok] == den[ok][0]):
         return math.nan, math.nan
-    res = stats.bootstrap((num, den), lambda a, b: np.sum(a, axis=-1) / np.sum(b, axis=-1),
+    res = stats.bootstrap((num, den), lambda a, b, axis=-1: np.sum(a, axis=axis) / np.sum(b, axis=axis),
                           paired=True, vectorized=True, n_resamples=999, method="percentile",
                           confidence_level=0.95, random_state=np.random.default_rng(seed))
     return float(res.confidence_interval.low), float(res.confidence_interval.high)

@@ -91,6 +91,8 @@ def first_rlf_s(oos: np.ndarray, ins: np.ndarray, t_s: np.ndarray, n310: int, n3
                 t310_s: float) -> float:
     """Instant of the first radio link failure implied by per-instant indications (inf if none
     within these rows).  Vectorised per T310 episode (episodes are few)."""
+    if not oos.any():
+        return math.inf
     ind = np.flatnonzero(oos | ins)
     is_out = oos[ind]
     i = 0
@@ -201,7 +203,10 @@ class Execution:
         """Instants where the serving satellite is in view but below q_out, as intervals."""
         rr = np.arange(rows.n)
         snr = np.where(col >= 0, rows.snr_db[rr, np.maximum(col, 0)], np.inf)
-        weak = (col >= 0) & (snr < self.s.q_out_db) & (rows.t_s >= t_from) & (rows.t_s < t_to)
-        for r in np.flatnonzero(weak):
-            a = float(rows.t_s[r])
-            self.rec.weak.append((a, min(a + self.s.period_s, t_to)))
+        weak = snr < self.s.q_out_db
+        if not weak.any():
+            return
+        weak &= (rows.t_s >= t_from) & (rows.t_s < t_to)
+        starts = rows.t_s[weak]
+        self.rec.weak.extend(zip(starts.tolist(),
+                                 np.minimum(starts + self.s.period_s, t_to).tolist()))

@@ -14,11 +14,11 @@ import math
 import numpy as np
 import simpy
 
-from ..measure import first_row_at_or_after
+from ..measure import row_at_or_after
 from ..policies.base import Decision, Link, Policy
 from .common import PRIORITY, Execution, first_rlf_s, monitoring
 
-FIRST_ROWS = 256
+FIRST_ROWS = 64
 
 
 class FastRun:
@@ -30,11 +30,13 @@ class FastRun:
         self.ex = execution
         self.s = execution.s
         self.stream = execution.stream
+        self._n = FIRST_ROWS                  # rows to look at first; adapts to link lengths
+        self.stream.release(0, self)          # register as a reader from the start
         self.process = env.process(self._run())
 
     # ---- helpers -------------------------------------------------------------------------------
     def _row(self, t_s: float) -> int:
-        return int(first_row_at_or_after(np.array([t_s]), self.s.period_s)[0])
+        return row_at_or_after(t_s, self.s.period_s)
 
     def _wait_until(self, t_s: float):
         self.ex.rec.events += 1
@@ -95,11 +97,17 @@ class FastRun:
             ex.close_link(s.duration_s, "end")
             return None
         self.stream.release(kc, self)
-        e0 = self.stream.window_end_covering(sat, t_c)
-        e0 = t_c if e0 is None else e0
-        n = FIRST_ROWS
+        e0 = None
+        n = self._n
         while True:
             rows = self.stream.rows(kc, kc + n)
+            if e0 is None:
+                c0 = rows.column_of(sat)[0]
+                if c0 >= 0 and rows.start_s[0, c0] <= t_c:
+                    e0 = float(rows.end_s[0, c0])     # the window open at row kc covers t_c
+                else:
+                    e0 = self.stream.window_end_covering(sat, t_c)
+                    e0 = t_c if e0 is None else e0
             horizon = math.inf if rows.final else float(rows.t_s[-1])
             col, oos, ins = monitoring(rows, sat, s.q_out_db, s.q_in_db)
             lost = np.flatnonzero(oos)
@@ -123,6 +131,8 @@ class FastRun:
             if when <= horizon or rows.final:
                 break
             n *= 2
+        used = int(math.ceil((min(when, s.duration_s) - t_c) / s.period_s)) + 2
+        self._n = int(min(4096, max(32, 2 * used)))
         if when >= s.duration_s:
             ex.record_weak(rows, col, t_c, s.duration_s)
             yield self._wait_until(s.duration_s)

@@ -15,7 +15,7 @@ import math
 import numpy as np
 import simpy
 
-from ..measure import first_row_at_or_after
+from ..measure import row_at_or_after
 from ..policies.base import Decision, Link, Policy, Rows
 from .common import PRIORITY, Execution
 
@@ -28,17 +28,17 @@ class NaiveRun:
         self.s = execution.s
         self.stream = execution.stream
         self._block: Rows | None = None
+        self.stream.release(0, self)          # register as a reader from the start
         self.process = env.process(self._run())
 
     def _rows_at(self, k: int) -> tuple[Rows, int]:
         b = self._block
         if b is None or not (b.k0 <= k < b.k0 + b.n):
-            start = (k // self.stream.B) * self.stream.B
-            b = self._block = self.stream.rows(start, start + self.stream.B)
+            b = self._block = self.stream.rows(k, k + self.stream.B)
         return b, k - b.k0
 
     def _row(self, t_s: float) -> int:
-        return int(first_row_at_or_after(np.array([t_s]), self.s.period_s)[0])
+        return row_at_or_after(t_s, self.s.period_s)
 
     def _run(self):
         s, ex, dt = self.s, self.ex, self.s.period_s

@@ -79,16 +79,21 @@ class Rows:
     end_s: np.ndarray          # (R, W) end of each cell's visibility window (predicted set)
     certain_until_s: float = math.inf  # rows beyond this instant were not provided
     final: bool = False        # these rows reach the end of the scenario
+    _cols: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n(self) -> int:
         return int(self.t_s.size)
 
     def column_of(self, sat: int) -> np.ndarray:
-        """Column of satellite ``sat`` in each row, or -1 where it is not in view."""
-        hit = self.sat == sat
-        col = np.argmax(hit, axis=1)
-        return np.where(hit[np.arange(self.n), col], col, -1)
+        """Column of satellite ``sat`` in each row, or -1 where it is not in view (cached)."""
+        col = self._cols.get(sat)
+        if col is None:
+            hit = self.sat == sat
+            col = np.argmax(hit, axis=1)
+            col = np.where(hit[np.arange(self.n), col], col, -1)
+            self._cols[sat] = col
+        return col
 
     def covers(self, r: int, col: int, t_s: float) -> bool:
         """Is the window in cell (r, col) open at instant t_s?"""
