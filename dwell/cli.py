@@ -183,6 +183,21 @@ def plot(outdir: Path, terminal: str | None, hour: int, policy: str | None) -> N
         click.echo(f"wrote {f}")
 
 
+@main.command()
+@click.option("--quick", is_flag=True, help="Small versions of every case (about a minute).")
+@click.option("-o", "--output", "out", default="bench-results", show_default=True,
+              type=click.Path(file_okay=False, path_type=Path), help="Folder for bench.parquet/json.")
+@guarded
+def bench(quick: bool, out: Path) -> None:
+    """Measure speed and memory against reference implementations, side by side."""
+    from .bench import format_bench, run_bench, write_bench
+
+    df, exps = run_bench(quick, lambda msg: click.echo(msg, err=True))
+    write_bench(df, exps, out)
+    click.echo(format_bench(df, exps), nl=False)
+    click.echo(f"results -> {out}")
+
+
 def _need(outdir: Path, name: str) -> None:
     if not (outdir / name).is_file():
         raise InputError(str(outdir), None, None, f"not a dwell run folder (no {name})")

@@ -45,10 +45,11 @@ def to_arrow(df: pd.DataFrame, epoch=None, metadata: dict[str, str] | None = Non
         elif name in CATEGORY_COLUMNS:
             cols[name] = pa.array(values.astype(str).to_numpy(dtype=object),
                                   type=pa.string()).dictionary_encode()
-        elif values.dtype == object:
-            cols[name] = pa.array(values.to_numpy(dtype=object))
-        else:
+        elif getattr(values.dtype, "kind", "O") in "biuf":
             cols[name] = pa.array(values.to_numpy())
+        else:  # text (object or pandas string dtype), missing values as nulls
+            cols[name] = pa.array([None if (v is None or (isinstance(v, float) and v != v)) else v
+                                   for v in values.astype(object).tolist()])
     table = pa.table(cols) if cols else pa.table({})
     if metadata:
         table = table.replace_schema_metadata({**(table.schema.metadata or {}),

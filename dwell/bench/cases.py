@@ -1,0 +1,227 @@
+"""Benchmark cases: each runs in its own process (so peak memory is its own) and prints one
+JSON object.  Every ratio is measured side by side with its reference in the same process.
+
+Invented scenarios only: a 1,584-satellite Walker shell (72 planes, 550 km, 53 deg) named
+"bench-shell", terminals at invented sites.
+"""
+
+from __future__ import annotations
+
+import json
+import resource
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+START = "2027-05-10T00:00:00Z"
+
+
+def shell(satellites=1584, planes=72, altitude_km=550.0, inclination_deg=53.0, name="bench-shell"):
+    return {"kind": "walker-delta", "name": name, "satellites": satellites, "planes": planes,
+            "phasing": 1, "altitude_km": altitude_km, "inclination_deg": inclination_deg}
+
+
+def sites(n: int, seed: int = 1) -> list[dict]:
+    """n invented sites spread over 60 S .. 60 N (one at 48 N, 11 E first)."""
+    rng = np.random.default_rng(seed)
+    out = [{"name": "site-0000", "lat_deg": 48.0, "lon_deg": 11.0, "min_elevation_deg": 25.0}]
+    for i in range(1, n):
+        out.append({"name": f"site-{i:04d}", "lat_deg": float(rng.uniform(-60, 60)),
+                    "lon_deg": float(rng.uniform(-180, 180)), "min_elevation_deg": 25.0})
+    return out
+
+
+def scenario(duration_s: float, constellations: list[dict], terminals: list[dict],
+             policies: list[dict] | None = None, **scen):
+    from ..config import scenario_from_dict
+    raw = {"scenario": {"start": START, "duration_s": duration_s, **scen},
+           "constellation": constellations, "terminal": terminals}
+    if policies:
+        raw["policy"] = policies
+    return scenario_from_dict(raw, "bench", Path("."))
+
+
+def peak_mib() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def _timed(fn):
+    t0 = time.perf_counter()
+    out = fn()
+    return time.perf_counter() - t0, out
+
+
+def our_windows(scen):
+    from ..geometry import Geometry
+    geo = Geometry(scen)
+    geo.run_all()
+    frames = [geo.window_frame(k) for k in range(len(geo.sites))]
+    geo.close()
+    return frames
+
+
+def skyfield_events(scen, site_params: list[dict], duration_s: float):
+    """Reference: skyfield's per-satellite rise/set search, looped over satellites (and sites)."""
+    from skyfield.api import EarthSatellite, load, wgs84
+    ts = load.timescale(builtin=True)
+    t0 = ts.from_datetime(scen.epoch.start)
+    t1 = ts.tt_jd(t0.tt + duration_s / 86400.0)
+    sats = [EarthSatellite.from_satrec(s.satrec, ts) for s in scen.constellation.satellites]
+    out = []
+    for p in site_params:
+        topo = wgs84.latlon(p["lat_deg"], p["lon_deg"], p.get("alt_m", 0.0))
+        per_site = []
+        for i, sat in enumerate(sats):
+            t, ev = sat.find_events(topo, t0, t1, altitude_degrees=p["min_elevation_deg"])
+            per_site.append((i, (t.tt - t0.tt) * 86400.0, ev))
+        out.append(per_site)
+    return out
+
+
+def dut1_s() -> float:
+    from skyfield.api import load
+    from ..timebase import parse_utc
+    ts = load.timescale(builtin=True)
+    return float(ts.from_datetime(parse_utc(START)).dut1)
+
+
+def case_passes_one(duration_s: float, satellites: int) -> dict:
+    """Target 1: pass table for one terminal against skyfield's find_events."""
+    terms = sites(1)
+    planes = 72 if satellites % 72 == 0 else 1
+    scen = scenario(duration_s, [shell(satellites, planes)], terms, ut1_utc_s=dut1_s())
+    ours_s, frames = _timed(lambda: our_windows(scen))
+    ref_s, events = _timed(lambda: skyfield_events(scen, terms, duration_s))
+    w = frames[0]
+    errs, unmatched = [], 0
+    for i, t, ev in events[0]:
+        mine = w[w["sat"] == i]
+        for code, col in ((0, "start_s"), (2, "end_s")):
+            ref = t[ev == code]
+            ref = ref[(ref > 1.0) & (ref < duration_s - 1.0)]
+            have = mine[col].to_numpy()
+            for x in ref:
+                d = np.abs(have - x)
+                if d.size and d.min() < 2.0:
+                    errs.append(float(d.min()))
+                else:
+                    unmatched += 1
+    return {"case": "passes-1-terminal", "ours_s": ours_s, "reference_s": ref_s,
+            "ratio": ref_s / ours_s, "target_ratio": 8.0, "max_event_diff_s": max(errs or [0.0]),
+            "events_compared": len(errs), "unmatched_events": unmatched, "peak_mib": peak_mib()}
+
+
+def case_passes_many(duration_s: float, satellites: int, n_terminals: int, ref_terminals: int) -> dict:
+    """Target 2: many terminals with shared propagation against the reference looped over
+    terminals (timed on ``ref_terminals`` and scaled)."""
+    terms = sites(n_terminals)
+    scen = scenario(duration_s, [shell(satellites)], terms)
+    ours_s, _ = _timed(lambda: our_windows(scen))
+    sub = terms[:ref_terminals]
+    ref_s, _ = _timed(lambda: skyfield_events(scen, sub, duration_s))
+    scaled = ref_s * n_terminals / ref_terminals
+    return {"case": f"passes-{n_terminals}-terminals", "ours_s": ours_s, "reference_s": scaled,
+            "reference_measured_s": ref_s, "ratio": scaled / ours_s, "target_ratio": 50.0,
+            "peak_mib": peak_mib()}
+
+
+A3_POLICY = {"name": "a3", "rule": "a3", "offset_db": 3.0, "hysteresis_db": 1.0,
+             "time_to_trigger_s": 0.64}
+
+
+def case_kernel(duration_s: float, satellites: int) -> dict:
+    """Target 3: the event kernel against the naive per-measurement kernel, same rows."""
+    import simpy
+
+    from .. import policies as pm
+    from ..geometry import Geometry
+    from ..kernel.common import Execution, RunSettings
+    from ..kernel.fast import FastRun
+    from ..kernel.naive import NaiveRun
+    from ..measure import MeasurementStream
+
+    scen = scenario(duration_s, [shell(satellites)], sites(1), [A3_POLICY])
+    scen.link.update({"shadowing_std_db": 2.0, "measurement_noise_db": 1.0})
+    geo = Geometry(scen)
+    stream = MeasurementStream(geo, 0, scen.link, 1.0, scen.seed)
+    hold = object()
+    stream.release(0, hold)                  # keep every row: both kernels read the same ones
+    build_s, _ = _timed(lambda: stream.rows(0, stream.K))
+    out = {}
+    for name, cls in (("fast", FastRun), ("naive", NaiveRun)):
+        env = simpy.Environment()
+        policy = pm.build(scen.policies[0], 1.0)
+        ex = Execution(RunSettings.of(scen.terminals[0], policy, stream.lp, geo.duration_s, 1.0),
+                       stream)
+        cls(env, policy, ex)
+        stream.release(0, hold)
+        t, _ = _timed(env.run)
+        out[name] = (t, ex.rec)
+    same = out["fast"][1].signature() == out["naive"][1].signature()
+    return {"case": "kernel-a3-1-terminal-day", "ours_s": out["fast"][0],
+            "reference_s": out["naive"][0], "ratio": out["naive"][0] / out["fast"][0],
+            "target_ratio": 20.0, "same_handovers": same,
+            "handovers": len(out["fast"][1].handovers), "rows_build_s": build_s,
+            "peak_mib": peak_mib()}
+
+
+def case_demo(config: str) -> dict:
+    """Target 4: the whole demo run against one SGP4 pass of its shell on a 60 s grid."""
+    import tempfile
+
+    from sgp4.api import SatrecArray
+
+    from ..config import load_scenario
+    from ..run import execute
+    scen = load_scenario(config)
+    arr = SatrecArray([s.satrec for s in scen.constellation.satellites])
+    t = np.arange(0.0, float(scen.scenario["duration_s"]) + 60.0, 60.0)
+    jd, fr = scen.epoch.julian(t)
+    sgp4_s, _ = _timed(lambda: arr.sgp4(jd, fr))
+    with tempfile.TemporaryDirectory() as tmp:
+        run_s, _ = _timed(lambda: execute(scen, Path(tmp) / "run"))
+    return {"case": "demo-run", "ours_s": run_s, "reference_s": sgp4_s,
+            "ratio": run_s / sgp4_s, "target_ratio": 6.0, "ratio_is": "ours / SGP4 60 s grid (<= target)",
+            "peak_mib": peak_mib()}
+
+
+def case_memory(kind: str, duration_s: float) -> dict:
+    """Target 5: peak memory of long or large runs (chunked: must not grow with duration)."""
+    from ..kernel import run_scenario
+    if kind == "week-1-terminal":
+        scen = scenario(duration_s, [shell()], sites(1), [A3_POLICY])
+    else:  # a 10,000-satellite multi-shell constellation
+        shells = [shell(4032, 72, 540.0, 53.0, "bench-a"), shell(3600, 72, 570.0, 70.0, "bench-b"),
+                  shell(2368, 32, 1100.0, 86.0, "bench-c")]
+        scen = scenario(duration_s, shells, sites(1), [A3_POLICY])
+    t, (res, geo) = _timed(lambda: run_scenario(scen))
+    return {"case": f"memory-{kind}", "ours_s": t, "satellites": len(scen.constellation),
+            "duration_s": duration_s, "handovers": len(res[0].records.handovers),
+            "peak_mib": peak_mib(), "target_peak_mib": 2048.0}
+
+
+def case_scale(axis: str, value: float, base: dict) -> dict:
+    """One point of the scaling table (pass finding and one A3 kernel run)."""
+    from ..kernel import run_scenario
+    sats = int(value) if axis == "satellites" else base["satellites"]
+    terms = int(value) if axis == "terminals" else base["terminals"]
+    dur = float(value) if axis == "duration_s" else base["duration_s"]
+    planes = 72 if sats % 72 == 0 else (50 if sats % 50 == 0 else 1)
+    scen = scenario(dur, [shell(sats, planes)], sites(terms))
+    t_geo, _ = _timed(lambda: our_windows(scen))
+    scen1 = scenario(dur, [shell(sats, planes)], sites(1), [A3_POLICY])
+    t_run, _ = _timed(lambda: run_scenario(scen1))
+    return {"case": f"scale-{axis}", "axis": axis, "value": value, "passes_s": t_geo,
+            "run_1_terminal_s": t_run, "peak_mib": peak_mib()}
+
+
+CASES = {"passes-one": case_passes_one, "passes-many": case_passes_many, "kernel": case_kernel,
+         "demo": case_demo, "memory": case_memory, "scale": case_scale}
+
+if __name__ == "__main__":
+    name = sys.argv[1]
+    kwargs = json.loads(sys.argv[2])
+    result = CASES[name](**kwargs)
+    print("BENCH-RESULT " + json.dumps(result, default=float))
