@@ -172,7 +172,7 @@ def compare(outdir: Path) -> None:
 @guarded
 def plot(outdir: Path, terminal: str | None, hour: int, policy: str | None) -> None:
     """Draw a run's (or a sweep's) figures as PNG files in OUTDIR/plots."""
-    if (outdir / "sweep.toml").exists():
+    if (outdir / "_sweep.toml").exists():
         from .sweep.plots import plot_sweep
         files = plot_sweep(outdir)
     else:
@@ -196,6 +196,47 @@ def bench(quick: bool, out: Path) -> None:
     write_bench(df, exps, out)
     click.echo(format_bench(df, exps), nl=False)
     click.echo(f"results -> {out}")
+
+
+@main.command()
+@click.argument("sweep_file", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Dataset folder (pandas.read_parquet(DIR) gives the combined summary).")
+@click.option("--workers", default=2, show_default=True, type=click.IntRange(1),
+              help="Local worker processes (or dask workers of a local cluster).")
+@click.option("--executor", type=click.Choice(["local", "dask"]), default="local", show_default=True)
+@click.option("--scheduler", default=None, help="Address of an existing dask scheduler.")
+@click.option("--dry-run", is_flag=True, help="Print how many runs and a cost estimate; run nothing.")
+@guarded
+def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: str | None,
+          dry_run: bool) -> None:
+    """Run a parameter sweep; resumes where an interrupted one stopped."""
+    from .sweep import execute_sweep, load_sweep, pending
+    from .sweep.execute import estimate_cost_s
+
+    plan = load_sweep(sweep_file)
+    left = pending(plan, out) if out.exists() else plan.tasks
+    n_left = sum(len(v) for v in left.values())
+    cost = estimate_cost_s(plan)
+    click.echo(f"{len(plan.runs)} runs in {len(plan.tasks)} tasks ({n_left} not yet done); "
+               f"about {cost / 60:.1f} CPU-minutes, {cost / 60 / max(1, workers):.1f} minutes "
+               f"on {workers} worker(s) (rough estimate)")
+    if dry_run:
+        return
+    bar = Progress("runs", None)
+
+    def show(done, failed, total, eta):
+        if bar.enabled:
+            left_txt = "" if eta != eta else f", about {eta / 60:.1f} min left"
+            click.echo(f"\rruns: {done + failed}/{total} ({failed} failed{left_txt})   ", err=True,
+                       nl=done + failed >= total)
+
+    rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
+                        progress=show)
+    click.echo(f"done {rep.done}, failed {rep.failed}, skipped {rep.skipped} (already finished) "
+               f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
+    for e in rep.errors[:10]:
+        click.echo(f"failed: {e}", err=True)
 
 
 def _need(outdir: Path, name: str) -> None:

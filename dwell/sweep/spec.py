@@ -1,0 +1,295 @@
+"""Sweep files: a base scenario plus axes to vary, expanded into runs.
+
+Sweep file (TOML)::
+
+    [sweep]
+    base = "demo.toml"          # the base scenario (relative to this file)
+    mode = "grid"               # grid: every combination; list: the [[combination]] tables
+    name = "a3-thresholds"
+
+    [[axis]]                    # one table per varied key
+    key = "policy.*.hysteresis_db"   # scenario.<k>, link.<k>, constellation.<name>.<k>,
+    values = [0, 1, 2]               # terminal.<name>.<k> (nested: terminal.x.canyon.<k>),
+                                     # policy.<name>.<k> ('*' = every policy having the key)
+    [[axis]]
+    key = "policy"              # which base policies run (by name)
+    values = ["a3", "cho-d1"]
+
+    [[axis]]
+    key = "scenario.seed"
+    values = [1, 2, 3]
+
+    [[axis]]                    # a set of terminals instead of the base ones
+    key = "terminal"
+    sites = { kind = "latitude-band", lat_min_deg = 0, lat_max_deg = 60, count = 7, lon_deg = 10 }
+    # kind = "random-region": lat/lon box and count (seeded); kind = "list": sites = [{...}]
+
+    [overrides]                 # fixed changes to the base, e.g. a shorter duration
+    "scenario.duration_s" = 14400
+
+A *run* is one combination: the base with the combination's values, all terminals, the
+selected policies.  Runs that differ only in policy keys share one *task*: one geometry pass
+and one measurement stream per terminal serve all of their policies.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import itertools
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..config import read_toml, scenario_from_dict
+from ..errors import InputError
+from ..schema import REQUIRED, Field, check_table, text
+
+SWEEP_KEYS = {
+    "base": text(REQUIRED, doc="base scenario file"),
+    "mode": text("grid", choices=("grid", "list"), doc="grid or list of combinations"),
+    "name": text("sweep", doc="label"),
+}
+AXIS_KEYS = {
+    "key": text(REQUIRED, doc="what to vary"),
+    "values": Field((list,), None, (), "the values"),
+    "sites": Field((dict,), None, (), "generated terminal sets (key = \"terminal\")"),
+}
+SITE_KINDS = ("latitude-band", "random-region", "list")
+
+
+@dataclass
+class Axis:
+    key: str
+    values: list[Any]
+    labels: list[Any]          # what the summary's parameter column shows per value
+
+
+@dataclass
+class Run:
+    params: dict[str, Any]     # axis key -> label
+    scenario: dict[str, Any]   # resolved-by-overrides raw scenario dict (one run)
+    policy_names: list[str]    # base policy names this run includes
+    key: str = ""              # hash of the run's resolved config
+    task: str = ""             # hash of the run's non-policy config
+
+
+@dataclass
+class SweepPlan:
+    source: str
+    base_dir: Path
+    name: str
+    axes: list[Axis]
+    runs: list[Run] = field(default_factory=list)
+    tasks: dict[str, list[Run]] = field(default_factory=dict)
+
+
+def _split(path: str) -> list[str]:
+    return [p for p in path.split(".") if p]
+
+
+def _find_named(tables: list[dict], name: str, kind: str, source: str, where: str) -> list[dict]:
+    if name == "*":
+        return tables
+    if name.startswith("[") and name.endswith("]"):
+        try:
+            return [tables[int(name[1:-1]) - 1]]
+        except (ValueError, IndexError):
+            raise InputError(source, where, name, f"no {kind} with that index") from None
+    hit = [t for t in tables if t.get("name") == name]
+    if not hit:
+        known = ", ".join(str(t.get("name")) for t in tables)
+        raise InputError(source, where, name, f"no {kind} named so (known: {known})")
+    return hit
+
+
+def apply_override(raw: dict, key: str, value: Any, source: str, where: str) -> None:
+    """Set ``key`` (a dotted path, see the module docstring) in a raw scenario dict."""
+    parts = _split(key)
+    if not parts:
+        raise InputError(source, where, key, "empty key")
+    head = parts[0]
+    if head in ("scenario", "link"):
+        if len(parts) != 2:
+            raise InputError(source, where, key, f"use {head}.<key>")
+        raw.setdefault(head, {})[parts[1]] = value
+        return
+    if head in ("constellation", "terminal", "policy"):
+        if len(parts) < 3:
+            raise InputError(source, where, key, f"use {head}.<name>.<key> ('*' for all)")
+        tables = raw.get(head, [])
+        targets = _find_named(tables, parts[1], head, source, where)
+        if parts[1] == "*":
+            targets = [t for t in targets if head != "policy" or _has_key(t, parts[2:])]
+            if not targets:
+                raise InputError(source, where, key, "no table has this key")
+        for t in targets:
+            node = t
+            for p in parts[2:-1]:
+                node = node.setdefault(p, {})
+            node[parts[-1]] = value
+        return
+    raise InputError(source, where, key, "must start with scenario, link, constellation, "
+                     "terminal or policy")
+
+
+def _has_key(table: dict, rest: list[str]) -> bool:
+    from .. import policies
+    try:
+        cls = policies.load_rule(table.get("rule", ""), "", "")
+    except InputError:
+        return False
+    return rest[0] in {**policies.COMMON_KEYS, **cls.KEYS}
+
+
+def generate_sites(spec: dict, template: dict, source: str, where: str) -> list[list[dict]]:
+    """Terminal sets of a ``sites`` generator: each returned set is one axis value."""
+    kind = spec.get("kind")
+    if kind not in SITE_KINDS:
+        raise InputError(source, f"{where}.sites.kind", kind, "must be one of " + ", ".join(SITE_KINDS))
+    base = {k: v for k, v in template.items() if k not in ("name", "lat_deg", "lon_deg")}
+    if kind == "list":
+        sites = spec.get("sites")
+        if not isinstance(sites, list) or not sites:
+            raise InputError(source, f"{where}.sites.sites", sites, "must be a list of terminal tables")
+        return [[{**base, **s}] for s in sites]
+    try:
+        count = int(spec["count"])
+    except (KeyError, TypeError, ValueError):
+        raise InputError(source, f"{where}.sites.count", spec.get("count"),
+                         "must be a whole number") from None
+    if count < 1:
+        raise InputError(source, f"{where}.sites.count", count, "must be >= 1")
+    if kind == "latitude-band":
+        lo, hi = float(spec.get("lat_min_deg", -60)), float(spec.get("lat_max_deg", 60))
+        lats = np.linspace(lo, hi, count)
+        lon = float(spec.get("lon_deg", 0.0))
+        return [[{**base, "name": f"lat{lat:+06.1f}", "lat_deg": float(lat), "lon_deg": lon}]
+                for lat in lats]
+    rng = np.random.default_rng(int(spec.get("seed", 0)))
+    lat = rng.uniform(float(spec.get("lat_min_deg", -60)), float(spec.get("lat_max_deg", 60)), count)
+    lon = rng.uniform(float(spec.get("lon_min_deg", -180)), float(spec.get("lon_max_deg", 180)), count)
+    return [[{**base, "name": f"site{i + 1:03d}", "lat_deg": float(a), "lon_deg": float(b)}]
+            for i, (a, b) in enumerate(zip(lat, lon))]
+
+
+def _canonical(obj: Any) -> str:
+    return json.dumps(obj, sort_keys=True, default=str)
+
+
+def load_sweep(path: str | Path) -> SweepPlan:
+    """Read a sweep file, check it and every run's scenario, and expand it."""
+    path = Path(path)
+    raw = read_toml(path)
+    source = str(path)
+    for key in raw:
+        if key not in ("sweep", "axis", "combination", "overrides"):
+            raise InputError(source, key, None, "unknown table (known: sweep, axis, combination, "
+                             "overrides)", show_value=False)
+    sw = check_table(raw.get("sweep", {}), SWEEP_KEYS, source, "sweep")
+    base_path = Path(sw["base"])
+    if not base_path.is_absolute():
+        base_path = path.resolve().parent / base_path
+    base_raw = read_toml(base_path)
+    base_dir = base_path.resolve().parent
+    overrides = raw.get("overrides", {})
+    if not isinstance(overrides, dict):
+        raise InputError(source, "overrides", overrides, "must be a table of key = value")
+    for k, v in overrides.items():
+        apply_override(base_raw, k, v, source, f"overrides.{k}")
+    axes = []
+    axis_tables = raw.get("axis", [])
+    if not isinstance(axis_tables, list):
+        raise InputError(source, "axis", None, "must be [[axis]] tables", show_value=False)
+    for i, t in enumerate(axis_tables):
+        where = f"axis[{i + 1}]"
+        a = check_table(t, AXIS_KEYS, source, where)
+        if a["key"] == "terminal":
+            if a["sites"] is None:
+                raise InputError(source, f"{where}.sites", None, "a terminal axis needs sites = {...}",
+                                 show_value=False)
+            template = (base_raw.get("terminal") or [{}])[0]
+            vals = generate_sites(a["sites"], template, source, where)
+            axes.append(Axis("terminal", vals, [v[0]["name"] for v in vals]))
+            continue
+        if not a["values"]:
+            raise InputError(source, f"{where}.values", a["values"], "must be a non-empty list")
+        labels = [float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else v
+                  for v in a["values"]]
+        axes.append(Axis(a["key"], list(a["values"]), labels))
+    plan = SweepPlan(source, base_dir, sw["name"], axes)
+    if sw["mode"] == "grid":
+        combos = [dict(zip(range(len(axes)), idx))
+                  for idx in itertools.product(*[range(len(a.values)) for a in axes])]
+    else:
+        combos = _list_combos(raw.get("combination", []), axes, source)
+    base_policies = [p.get("name") or p.get("rule") for p in base_raw.get("policy", [])]
+    for combo in combos:
+        scen = copy.deepcopy(base_raw)
+        params = {}
+        policy_names = list(base_policies)
+        for ai, vi in combo.items():
+            ax = axes[ai]
+            value = ax.values[vi]
+            params[ax.key] = ax.labels[vi]
+            if ax.key == "terminal":
+                scen["terminal"] = copy.deepcopy(value)
+            elif ax.key == "policy":
+                if value not in base_policies:
+                    raise InputError(source, f"axis[{ai + 1}].values", value,
+                                     "no such policy in the base (known: " + ", ".join(base_policies) + ")")
+                policy_names = [value]
+            else:
+                apply_override(scen, ax.key, value, source, f"axis[{ai + 1}].key")
+        scen["policy"] = [p for p in scen.get("policy", [])
+                          if (p.get("name") or p.get("rule")) in policy_names]
+        if not scen["policy"]:
+            raise InputError(source, "axis", None, "a combination selects no policy", show_value=False)
+        plan.runs.append(Run(params, scen, policy_names))
+    _key_runs(plan)
+    return plan
+
+
+def _list_combos(tables: list, axes: list[Axis], source: str) -> list[dict]:
+    out = []
+    keys = {a.key: i for i, a in enumerate(axes)}
+    for j, t in enumerate(tables):
+        combo = {}
+        for k, v in t.items():
+            if k not in keys:
+                raise InputError(source, f"combination[{j + 1}].{k}", v, "not an axis key")
+            ax = axes[keys[k]]
+            lab = [str(x) for x in ax.labels]
+            if str(v if not isinstance(v, (int, float)) else float(v)) not in lab and v not in ax.values:
+                raise InputError(source, f"combination[{j + 1}].{k}", v, "not one of the axis values")
+            combo[keys[k]] = ax.values.index(v) if v in ax.values else lab.index(str(float(v)))
+        out.append(combo)
+    if not out:
+        raise InputError(source, "[[combination]]", None, "mode = \"list\" needs combination tables",
+                         show_value=False)
+    return out
+
+
+def _key_runs(plan: SweepPlan) -> None:
+    """Check every run's scenario (errors name the sweep file) and give runs and tasks keys."""
+    for i, run in enumerate(plan.runs):
+        try:
+            scen = scenario_from_dict(copy.deepcopy(run.scenario), plan.source, plan.base_dir,
+                                      build=False)
+        except InputError as exc:
+            raise InputError(plan.source, f"run {i + 1} ({_canonical(run.params)})", None,
+                             str(exc), show_value=False) from None
+        resolved = scen.resolved()
+        run.key = hashlib.sha256(_canonical(resolved).encode()).hexdigest()[:16]
+        no_policy = {k: v for k, v in resolved.items() if k != "policy"}
+        run.task = hashlib.sha256(_canonical(no_policy).encode()).hexdigest()[:16]
+        plan.tasks.setdefault(run.task, []).append(run)
+    seen: dict[str, int] = {}
+    for i, run in enumerate(plan.runs):
+        if run.key in seen:
+            raise InputError(plan.source, "axis", None, f"runs {seen[run.key] + 1} and {i + 1} are "
+                             "the same scenario (an axis changes nothing?)", show_value=False)
+        seen[run.key] = i
