@@ -224,7 +224,8 @@ def build_constellation(scen: Scenario, warn: Callable[[str], None]) -> Constell
     sats = []
     for i, params in enumerate(scen.constellations):
         ctx = BuildContext(scen.source, f"constellation[{i + 1}]", scen.base_dir,
-                           scen.epoch.sgp4_epoch_days(), len(sats), warn, scen.seed, i)
+                           scen.epoch.sgp4_epoch_days(), len(sats), warn=warn, seed=scen.seed,
+                           index=i)
         sats.extend(SOURCES[params["kind"]].build(params, ctx))
     seen: dict[str, int] = {}
     for s in sats:  # names must be unique across tables too

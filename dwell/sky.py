@@ -3,8 +3,8 @@
 SGP4 (``sgp4.api.SatrecArray``) is evaluated for all satellites on a coarse grid (default 300 s
 for LEO), one time chunk at a time so memory stays bounded for any duration.  Between grid points
 positions come from quintic Hermite interpolation on position, SGP4's velocity and a two-body+J2
-acceleration: on a 550 km shell this stays within about 1 m of SGP4 at a 300 s grid (measured
-against 1 s SGP4 output), so fine-grained geometry never needs the whole shell at 1 s.
+acceleration: on a 550 km circular shell this stays within about 1 m of SGP4 at a 300 s grid
+(measured against 1 s SGP4 output; about 10 m for an eccentricity of 0.02), so fine-grained geometry never needs the whole shell at 1 s.
 
 Cost: one SGP4 call per satellite per grid point (about 0.5 us each on this class of machine),
 plus ~20 flops per interpolated sample.

@@ -77,7 +77,7 @@ def circular_satrec(number: int, epoch_days: float, altitude_km: float, inclinat
     """A circular orbit as an SGP4 record (no drag).
 
     The mean motion is the Kepler rate for a = R_eq + altitude handed to SGP4 as its (Kozai)
-    mean motion; the propagated radius then averages within ~2 km of that and oscillates a few
+    mean motion; the propagated radius then averages within ~3 km of that and oscillates a few
     km with J2, as a real shell does.
     """
     a = EQUATORIAL_RADIUS_KM + altitude_km

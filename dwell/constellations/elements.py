@@ -72,8 +72,9 @@ def parse_tle_text(body: str, file: str) -> list[tuple[str | None, str, str, int
                                  f"element lines have 69 characters, this has {len(line)}")
             try:
                 verify_checksum(line)
-            except ValueError as exc:
-                raise InputError(file, f"line {num}", line, f"bad checksum ({exc})") from None
+            except ValueError:
+                raise InputError(file, f"line {num}", line,
+                                 f"bad checksum (last digit should be {_checksum(line)})") from None
         if ln[2:7] != ln2[2:7]:
             raise InputError(file, f"line {n2}", ln2, "catalogue number differs from its line 1")
         out.append((name, ln, ln2, n))
@@ -81,6 +82,11 @@ def parse_tle_text(body: str, file: str) -> list[tuple[str | None, str, str, int
     if not out:
         raise InputError(file, None, None, "no element sets found")
     return out
+
+
+def _checksum(line: str) -> int:
+    from sgp4.io import compute_checksum
+    return compute_checksum(line)
 
 
 def _warn_spread(sats: list[Satrec], params: dict, file: str, ctx: BuildContext) -> None:
