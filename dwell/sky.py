@@ -13,7 +13,7 @@ plus ~20 flops per interpolated sample.
 from __future__ import annotations
 
 import math
-from concurrent.futures import ThreadPoolExecutor
+from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Callable
 
@@ -135,36 +135,18 @@ class Propagator:
     """Vectorised SGP4 over the whole constellation; failing satellites are dropped, not fatal."""
 
     def __init__(self, constellation: Constellation, epoch: Epoch,
-                 warn: Callable[[str], None] | None = None, threads: int = 2):
+                 warn: Callable[[str], None] | None = None):
         self.constellation = constellation
         self.epoch = epoch
         self.warn = warn or (lambda msg: None)
-        sats = [s.satrec for s in constellation.satellites]
-        self.threads = max(1, threads if len(sats) >= 200 else 1)
-        bounds = np.linspace(0, len(sats), self.threads + 1).astype(int)
-        self._parts = [(a, b, SatrecArray(sats[a:b])) for a, b in zip(bounds[:-1], bounds[1:])
-                       if b > a]
-        self._pool = ThreadPoolExecutor(self.threads) if self.threads > 1 else None
+        # one array: sgp4's loop holds the GIL, so threads would not help (measured)
+        self._array = SatrecArray([s.satrec for s in constellation.satellites])
         self.failed: dict[int, tuple[float, int]] = {}   # satellite -> (first bad t_s, code)
 
     def propagate(self, t_s: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """TEME r (km), v (km/s) with shape (S, n, 3), and per-satellite validity (S,)."""
         jd, fr = self.epoch.julian(t_s)
-        n_sat = len(self.constellation)
-        r = np.empty((n_sat, t_s.size, 3))
-        v = np.empty((n_sat, t_s.size, 3))
-        err = np.empty((n_sat, t_s.size), dtype=np.uint8)
-
-        def run(part):
-            a, b, arr = part
-            e, rr, vv = arr.sgp4(jd, fr)
-            err[a:b], r[a:b], v[a:b] = e, rr, vv
-
-        if self._pool is not None:
-            list(self._pool.map(run, self._parts))
-        else:
-            for part in self._parts:
-                run(part)
+        err, r, v = self._array.sgp4(jd, fr)
         bad = err != 0
         valid = ~bad.any(axis=1)
         for s in np.flatnonzero(~valid):
@@ -185,8 +167,7 @@ class Propagator:
         return r, v, valid
 
     def close(self) -> None:
-        if self._pool is not None:
-            self._pool.shutdown(wait=False)
+        """Nothing to release (kept for symmetry with :meth:`Sky.close`)."""
 
 
 def chunk_grid(t0_s: float, t1_s: float, step_s: float) -> np.ndarray:
@@ -209,7 +190,7 @@ class Sky:
         self.chunk_s = max(self.step_s, math.floor(chunk_s / self.step_s) * self.step_s)
         self.n_chunks = max(1, math.ceil(self.duration_s / self.chunk_s - 1e-9))
         self.propagator = Propagator(constellation, epoch, warn)
-        self._cache: dict[int, SkyChunk] = {}
+        self._cache: OrderedDict[int, SkyChunk] = OrderedDict()   # least recently used first
         self._keep = keep
         self.propagated_samples = 0
 
@@ -222,6 +203,7 @@ class Sky:
 
     def chunk(self, c: int) -> SkyChunk:
         if c in self._cache:
+            self._cache.move_to_end(c)
             return self._cache[c]
         t0, t1 = self.bounds(c)
         grid = chunk_grid(t0, t1, self.step_s)
@@ -230,7 +212,7 @@ class Sky:
         out = SkyChunk(c, t0, t1, grid, r, v, gravity_acceleration(r), valid)
         self._cache[c] = out
         while len(self._cache) > self._keep:
-            del self._cache[min(self._cache)]
+            self._cache.popitem(last=False)
         return out
 
     def states(self, sat: np.ndarray, t_s: np.ndarray, *, velocity: bool = True

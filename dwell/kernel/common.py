@@ -120,16 +120,21 @@ def _consecutive(x: np.ndarray) -> np.ndarray:
 
 
 def monitoring(rows: Rows, sat: int, q_out: float, q_in: float
-               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Per row: serving column, out-of-sync and in-sync indications."""
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Per row: serving column, out-of-sync and in-sync indications, and weak (in view but
+    below q_out)."""
     col = rows.column_of(sat)
     vis = col >= 0
     snr = np.where(vis, rows.snr_db[np.arange(rows.n), np.maximum(col, 0)], -np.inf)
-    return col, ~vis | (snr < q_out), vis & (snr >= q_in)
+    weak = vis & (snr < q_out)
+    return col, ~vis | weak, vis & (snr >= q_in), weak
 
 
 def pointing(rows: Rows, r: int, sat: int) -> tuple[float, float] | None:
     """(azimuth, elevation) of ``sat`` at row r, or at its latest earlier row in these rows."""
+    here = np.flatnonzero(rows.sat[r] == sat)
+    if here.size:
+        return float(rows.azimuth_deg[r, here[0]]), float(rows.elevation_deg[r, here[0]])
     col = rows.column_of(sat)[: r + 1]
     hit = np.flatnonzero(col >= 0)
     if hit.size == 0:
@@ -142,7 +147,8 @@ def angle_between_deg(a: tuple[float, float] | None, b: tuple[float, float] | No
     """Angle between two (azimuth, elevation) directions; 0 when either is unknown."""
     if a is None or b is None:
         return 0.0
-    az1, el1, az2, el2 = map(math.radians, (a[0], a[1], b[0], b[1]))
+    r = math.pi / 180.0
+    az1, el1, az2, el2 = a[0] * r, a[1] * r, b[0] * r, b[1] * r
     c = math.sin(el1) * math.sin(el2) + math.cos(el1) * math.cos(el2) * math.cos(az1 - az2)
     return math.degrees(math.acos(max(-1.0, min(1.0, c))))
 
@@ -173,8 +179,12 @@ class Execution:
         """Record handover ``d`` and return (time the old link ends, break, new link start)."""
         hw = self.s.hardware
         r = rows.row_at(d.time_s, self.s.period_s)
-        old = pointing(rows, r, self.link_sat)
-        new = pointing(rows, r, d.target)
+        row = rows.sat[r].tolist()
+        cf = row.index(self.link_sat) if self.link_sat in row else -1
+        ct = row.index(d.target) if d.target in row else -1
+        az, el = rows.azimuth_deg, rows.elevation_deg
+        old = (float(az[r, cf]), float(el[r, cf])) if cf >= 0 else pointing(rows, r, self.link_sat)
+        new = (float(az[r, ct]), float(el[r, ct])) if ct >= 0 else pointing(rows, r, d.target)
         slew = angle_between_deg(old, new)
         repoint = float(hw.repoint_s(slew))
         if hw.make_before_break:
@@ -184,12 +194,12 @@ class Execution:
         else:
             ap = self.aperture
             old_end, brk = d.time_s, hw.interruption_s + repoint
-        cf, ct = rows.column_of(self.link_sat)[r], rows.column_of(d.target)[r]
-        val = lambda arr, c: float(arr[r, c]) if c >= 0 else math.nan  # noqa: E731
-        self.rec.handovers.append((d.time_s, self.link_sat, d.target, trigger,
-                                   val(rows.elevation_deg, cf), val(rows.elevation_deg, ct),
-                                   val(rows.rsrp_dbm, cf), val(rows.rsrp_dbm, ct), slew, ap, brk,
-                                   repoint))
+        nan = math.nan
+        self.rec.handovers.append((
+            d.time_s, self.link_sat, d.target, trigger,
+            float(el[r, cf]) if cf >= 0 else nan, float(el[r, ct]) if ct >= 0 else nan,
+            float(rows.rsrp_dbm[r, cf]) if cf >= 0 else nan,
+            float(rows.rsrp_dbm[r, ct]) if ct >= 0 else nan, slew, ap, brk, repoint))
         self._next_aperture = ap
         return old_end, brk, old_end + brk
 
@@ -199,14 +209,11 @@ class Execution:
         if brk > 0:
             self.rec.switching.append((old_end, min(old_end + brk, self.s.duration_s)))
 
-    def record_weak(self, rows: Rows, col: np.ndarray, t_from: float, t_to: float) -> None:
+    def record_weak(self, rows: Rows, weak: np.ndarray, t_from: float, t_to: float) -> None:
         """Instants where the serving satellite is in view but below q_out, as intervals."""
-        rr = np.arange(rows.n)
-        snr = np.where(col >= 0, rows.snr_db[rr, np.maximum(col, 0)], np.inf)
-        weak = snr < self.s.q_out_db
         if not weak.any():
             return
-        weak &= (rows.t_s >= t_from) & (rows.t_s < t_to)
+        weak = weak & (rows.t_s >= t_from) & (rows.t_s < t_to)
         starts = rows.t_s[weak]
         self.rec.weak.extend(zip(starts.tolist(),
                                  np.minimum(starts + self.s.period_s, t_to).tolist()))

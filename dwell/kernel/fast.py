@@ -109,11 +109,10 @@ class FastRun:
                     e0 = self.stream.window_end_covering(sat, t_c)
                     e0 = t_c if e0 is None else e0
             horizon = math.inf if rows.final else float(rows.t_s[-1])
-            col, oos, ins = monitoring(rows, sat, s.q_out_db, s.q_in_db)
-            lost = np.flatnonzero(oos)
+            col, oos, ins, weak = monitoring(rows, sat, s.q_out_db, s.q_in_db)
             release = t_c + s.min_dwell_s
-            if lost.size:
-                release = min(release, float(rows.t_s[lost[0]]))
+            if s.min_dwell_s > 0 and oos.any():
+                release = min(release, float(rows.t_s[int(np.argmax(oos))]))
             link = Link(sat, t_c, release, 0, e0)
             events = []
             d = self.policy.scan(rows, link)
@@ -134,11 +133,11 @@ class FastRun:
         used = int(math.ceil((min(when, s.duration_s) - t_c) / s.period_s)) + 2
         self._n = int(min(4096, max(32, 2 * used)))
         if when >= s.duration_s:
-            ex.record_weak(rows, col, t_c, s.duration_s)
+            ex.record_weak(rows, weak, t_c, s.duration_s)
             yield self._wait_until(s.duration_s)
             ex.close_link(s.duration_s, "end")
             return None
-        ex.record_weak(rows, col, t_c, when)
+        ex.record_weak(rows, weak, t_c, when)
         yield self._wait_until(when)
         if kind == "rlf":
             return ("rlf", when, None)

@@ -83,23 +83,44 @@ class EventA3(Policy):
         return measured, enter, leave, np.where(measured, lhs, -np.inf)
 
     def scan(self, rows: Rows, link: Link) -> Decision | None:
+        m, n = self.m, rows.n
+        if n <= m:
+            return None
+        col = rows.column_of(link.sat)
+        rr = np.arange(n)
+        mp = np.where(col >= 0, rows.rsrp_dbm[rr, np.maximum(col, 0)], -np.inf)
+        # empty cells hold NaN and compare False; the serving satellite's cells are excluded
+        enter = (rows.rsrp_dbm + (self.ocn - self.hys) > (mp + self.ocp + self.off)[:, None])
+        enter &= rows.sat != link.sat
+        enter[:link.r_start] = False
+        # held at row a: entering at rows a..a+m within one window.  The first such row of a
+        # cell is necessarily where its run started (or the link's first row), so the earliest
+        # entry needs no run-start bookkeeping.
+        if m == 0:
+            held = enter
+        else:
+            stop = ~enter
+            stop[1:] |= rows.win[1:] != rows.win[:-1]
+            csum = np.cumsum(stop, axis=0)
+            held = enter[: n - m] & (csum[m:] == csum[: n - m])
+        tau = np.maximum(rows.t_s[: n - m] + self.ttt, rows.t_s[m:])
+        valid = held & (tau[:, None] < rows.end_s[: n - m])
+        first = valid.any(axis=1)
+        if not first.any():
+            return None
+        r0 = int(np.argmax(first))
+        t_first = float(tau[r0])
+        g = link.release_s
+        if g <= t_first:
+            lhs = rows.rsrp_dbm + self.ocn
+            return self._pick(rows, np.where(rows.sat >= 0, lhs, -np.inf),
+                              np.flatnonzero(valid[r0]), t_first)
         measured, enter, leave, lhs = self._conditions(rows, link)
-        m = self.m
-        n = rows.n
         eb = held_runs(enter, rows.win, m)
         a, j = np.nonzero(eb)
-        if a.size == 0:
-            return None
         tau = self.expiry(rows.t_s[a], rows.t_s[a + m])
         ok = tau < rows.end_s[a, j]
         a, j, tau = a[ok], j[ok], tau[ok]
-        if a.size == 0:
-            return None
-        g = link.release_s
-        if g <= tau.min():
-            t_ho = float(tau.min())
-            cand = j[tau == t_ho]
-            return self._pick(rows, lhs, cand, t_ho)
         # guard still on at the first entries: follow list memberships cell by cell
         lb = held_runs(leave, rows.win, m)
         best_t, best_cells = math.inf, []
