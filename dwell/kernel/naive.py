@@ -78,6 +78,16 @@ class NaiveRun:
                 ex.open_link(target, t_next, "handover")
         self.stream.release(K, self)
 
+    def _early_loss(self, rows: Rows, r: int, early: list[float], losses: list[float], sat: int):
+        for e in early:
+            losses.remove(e)
+            if e >= self.s.duration_s:
+                return None
+            c = self.policy.select(rows, r, e, exclude=sat)
+            if c >= 0:
+                return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r)
+        return None
+
     def _serve(self):
         s, ex, dt = self.s, self.ex, self.s.period_s
         sat, t_c = ex.link_sat, ex.link_start
@@ -98,10 +108,18 @@ class NaiveRun:
             if k >= self.stream.K:
                 when, kind, d = s.duration_s, "end", None
                 break
+            rows, r = self._rows_at(k)
+            early = [e for e in losses if e < t_k] if (self.policy.loss_aware and k == kc) else []
+            if early:
+                # the serving window closed before the link's first measurement: judge the loss
+                # now, with the first row's cells (the event kernel does the same)
+                d = self._early_loss(rows, r, sorted(early), losses, sat)
+                if d is not None:
+                    when, kind = d.time_s, "loss"
+                    break
             yield self.env.timeout(t_k - self.env.now)
             ex.rec.events += 1
             self.stream.release(kc, self)
-            rows, r = self._rows_at(k)
             col = -1
             for j in range(rows.sat.shape[1]):
                 if rows.sat[r, j] == sat:
@@ -134,7 +152,7 @@ class NaiveRun:
                     if e >= t_next or e >= s.duration_s:
                         break
                     losses.remove(e)
-                    re = max(int(math.floor(e / dt + 1e-9)), kc) - rows.k0
+                    re = max(rows.row_at(e), kc - rows.k0)
                     c = self.policy.select(rows, re, e, exclude=sat)
                     if c >= 0:
                         events.append((e, PRIORITY["loss"], "loss",

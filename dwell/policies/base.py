@@ -99,10 +99,11 @@ class Rows:
         """Is the window in cell (r, col) open at instant t_s?"""
         return bool(col >= 0 and self.start_s[r, col] <= t_s < self.end_s[r, col])
 
-    def row_at(self, t_s: float, period_s: float) -> int:
-        """Index of the latest row at or before t_s (clipped to the rows held)."""
-        k = int(math.floor(t_s / period_s + 1e-9))
-        return min(max(k - self.k0, 0), self.n - 1)
+    def row_at(self, t_s: float, period_s: float | None = None) -> int:
+        """Index of the latest row at or before t_s, by exact comparison with the row instants
+        (clipped to the rows held)."""
+        r = int(np.searchsorted(self.t_s, t_s, side="right")) - 1
+        return min(max(r, 0), self.n - 1)
 
 
 @dataclass

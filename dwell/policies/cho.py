@@ -4,8 +4,8 @@ prepared candidates executed when an execution condition holds.
 Conditions (``condition``), combinable with an A3 entering condition (``"t1+a3"``, ``"d1+a3"``):
 
 - ``t1``: time-based.  The network knows from ephemeris when the serving satellite leaves
-  (the end of its visibility window ``e``); the condition holds from ``e - t1_lead_s`` for
-  ``t1_duration_s`` (t1-Threshold and duration of event T1).
+  (the end of its visibility window ``e``); the condition holds after ``e - t1_lead_s`` and for
+  ``t1_duration_s`` (t1-Threshold and duration of event T1: Thresh1 < t <= Thresh1 + duration).
 - ``d1``: distance-based: distance from the terminal to the serving reference location above
   ``d1_serving_km`` + hysteresis and to the candidate's below ``d1_candidate_km`` - hysteresis
   (distanceThreshFromReference1/2, hysteresisLocation of event D1).  The reference location of a
@@ -91,7 +91,9 @@ class ConditionalHandover(Policy):
                 cond &= rows.nadir_km < p["d1_candidate_km"] - p["d1_hysteresis_km"]
             if "t1" in self.parts:
                 t1 = link.serving_end_s - p["t1_lead_s"]
-                cond &= ((rows.t_s >= t1) & (rows.t_s <= t1 + p["t1_duration_s"]))[:, None]
+                # TS 38.331 CondEvent T1 (from memory): entering Mt > Thresh1, leaving
+                # Mt > Thresh1 + Duration
+                cond &= ((rows.t_s > t1) & (rows.t_s <= t1 + p["t1_duration_s"]))[:, None]
         return cond
 
     def scan(self, rows: Rows, link: Link) -> Decision | None:
