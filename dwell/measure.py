@@ -211,7 +211,7 @@ class MeasurementStream:
         """Geometry and link values of (satellite, window, row) pairs sorted by window, row."""
         geo = self.geo
         t = k * self.period_s
-        r_sat, _ = geo.sky.states(sat, t, velocity=False)
+        r_sat = geo.sky.positions_on_grid(sat, t, self.period_s)
         k0 = int(k.min())
         pos, _, basis = self.site.teme(np.arange(k0, int(k.max()) + 1) * self.period_s, geo.earth)
         pos, basis = pos[k - k0], basis[k - k0]

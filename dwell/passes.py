@@ -94,16 +94,10 @@ class _Evaluator:
 
     def mask_margin(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
         """Elevation minus the obstruction mask at the satellite's azimuth (floor excluded)."""
-        r, _ = self.chunk.states(sat, t_s, velocity=False)
-        pos, _, basis = self.site.teme(t_s, self.earth)
+        step = self.site.sample_step_s
+        r = self.chunk.positions_on_grid(sat, t_s, step)
         self.evaluations += t_s.size
-        rho = r - pos
-        rng = np.linalg.norm(rho, axis=-1)
-        e = np.einsum("...i,...i->...", rho, basis[..., 0, :])
-        n = np.einsum("...i,...i->...", rho, basis[..., 1, :])
-        u = np.einsum("...i,...i->...", rho, basis[..., 2, :])
-        el = np.degrees(np.arcsin(np.clip(u / rng, -1, 1)))
-        az = np.mod(np.degrees(np.arctan2(e, n)), 360.0)
+        az, el = self.site.azimuth_elevation(r, t_s, self.earth)
         return el - self.site.mask_deg(az, t_s)
 
 

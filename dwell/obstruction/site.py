@@ -58,6 +58,24 @@ class Site:
         c, s = np.cos(g), np.sin(g)
         return rotate_z(r, c, s), rotate_z(basis[..., 2, :], c, s)
 
+    def azimuth_elevation(self, sat_r_teme: np.ndarray, t_s: np.ndarray, earth: EarthOrientation
+                          ) -> tuple[np.ndarray, np.ndarray]:
+        """Azimuth and elevation (deg) of TEME satellite positions seen from the site.
+
+        Rotates each satellite position into Earth-fixed axes (one rotation per sample) and
+        projects on the site's east/north/up, which for a fixed site are constants."""
+        t_s = np.asarray(t_s, dtype=float)
+        g = earth.gmst(t_s)
+        r_ecef = rotate_z(sat_r_teme, np.cos(g), -np.sin(g))
+        site_r, _, basis = self.motion.ecef(t_s)
+        rho = r_ecef - site_r
+        e = np.einsum("...i,...i->...", rho, basis[..., 0, :])
+        n = np.einsum("...i,...i->...", rho, basis[..., 1, :])
+        u = np.einsum("...i,...i->...", rho, basis[..., 2, :])
+        rng = np.sqrt(e * e + n * n + u * u)
+        return (np.mod(np.degrees(np.arctan2(e, n)), 360.0),
+                np.degrees(np.arcsin(np.clip(u / rng, -1.0, 1.0))))
+
     def mask_deg(self, azimuth_deg: np.ndarray, t_s: np.ndarray) -> np.ndarray:
         """Elevation the obstructions demand (-90 where nothing blocks); floor not included."""
         out = np.full(np.shape(azimuth_deg), -90.0)
