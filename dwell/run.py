@@ -94,10 +94,11 @@ def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, out
         order = np.argsort(s)
         if np.any(s[order][1:] < e[order][:-1] - 1e-9):
             raise InvariantError(f"{who}: overlapping links on aperture {ap}")
-    for t, to in zip(hos["time_utc"].to_numpy(), [h[2] for h in res.records.handovers]):
-        wa, wb = cov.win_by_sat.get(int(to), (np.zeros(0), np.zeros(0)))
-        if not np.any((wa <= t) & (t < wb)):
-            raise InvariantError(f"{who}: handover at {t} s to a satellite not in view")
+    targets = np.array([h[2] for h in res.records.handovers], dtype=np.int64)
+    times = hos["time_utc"].to_numpy(dtype=float)
+    ok = cov.in_window(targets, times) if targets.size else np.zeros(0, bool)
+    if not ok.all():
+        raise InvariantError(f"{who}: handover at {times[~ok][0]} s to a satellite not in view")
     if row["handovers"] != len(hos) or row["links"] != len(links):
         raise InvariantError(f"{who}: summary counts differ from the tables")
 

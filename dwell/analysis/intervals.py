@@ -77,3 +77,59 @@ def max_overlap(starts: np.ndarray, ends: np.ndarray) -> int:
     delta = np.concatenate([np.ones(len(starts), int), -np.ones(len(ends), int)])
     order = np.lexsort((delta, times))         # ends before starts at equal times
     return int(np.max(np.cumsum(delta[order])))
+
+
+def count_before(ref_key: np.ndarray, ref_t: np.ndarray, q_key: np.ndarray, q_t: np.ndarray,
+                 *, inclusive: bool) -> np.ndarray:
+    """For each query (key, t): how many references with the same key have t_ref <= t
+    (``inclusive``) or t_ref < t.  Exact (a lexsort, no float packing of keys and times)."""
+    ref_key = np.asarray(ref_key, dtype=np.int64)
+    q_key = np.asarray(q_key, dtype=np.int64)
+    keys = np.concatenate([ref_key, q_key])
+    t = np.concatenate([np.asarray(ref_t, dtype=float), np.asarray(q_t, dtype=float)])
+    # at equal times references sort first when inclusive (they count), last otherwise
+    typ = np.concatenate([np.zeros(ref_key.size, np.int8) if inclusive else np.ones(ref_key.size, np.int8),
+                          np.ones(q_key.size, np.int8) if inclusive else np.zeros(q_key.size, np.int8)])
+    order = np.lexsort((typ, t, keys))
+    is_ref = np.zeros(keys.size, dtype=np.int64)
+    is_ref[: ref_key.size] = 1
+    cum = np.cumsum(is_ref[order])
+    ks = keys[order]
+    first = np.concatenate([[True], ks[1:] != ks[:-1]])
+    group = np.cumsum(first) - 1
+    base = (cum - is_ref[order])[first]          # references before each key group
+    count = cum - base[group]
+    out = np.empty(keys.size, dtype=np.int64)
+    out[order] = count
+    return out[ref_key.size:]
+
+
+def covered_same_key(iv_key, iv_start, iv_end, q_key, q_t) -> np.ndarray:
+    """For each query (key, t): is t inside an interval [start, end) with the same key?
+    (Intervals of one key must not overlap.)"""
+    return (count_before(iv_key, iv_start, q_key, q_t, inclusive=True)
+            - count_before(iv_key, iv_end, q_key, q_t, inclusive=True)) > 0
+
+
+def intersect_same_key(a_key, a_start, a_end, b_key, b_start, b_end
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pairwise intersections of intervals a and b that share a key (each list disjoint within
+    a key).  Returns (start, end, index into a) of the non-empty pieces."""
+    b_key = np.asarray(b_key, dtype=np.int64)
+    order = np.lexsort((b_start, b_key))
+    bk, bs, be = b_key[order], np.asarray(b_start)[order], np.asarray(b_end)[order]
+    # first b of each key in the sorted list
+    uniq, first_idx = np.unique(bk, return_index=True)
+    a_key = np.asarray(a_key, dtype=np.int64)
+    pos = np.searchsorted(uniq, a_key)
+    pos_ok = (pos < uniq.size) & (uniq[np.minimum(pos, uniq.size - 1)] == a_key)
+    block = np.where(pos_ok, first_idx[np.minimum(pos, uniq.size - 1)], 0)
+    lo = count_before(bk, be, a_key, a_start, inclusive=True)     # b ending at or before a's start
+    hi = count_before(bk, bs, a_key, a_end, inclusive=False)      # b starting before a's end
+    n = np.where(pos_ok, np.maximum(hi - lo, 0), 0)
+    ia = np.repeat(np.arange(a_key.size), n)
+    ib = np.arange(int(n.sum())) - np.repeat(np.cumsum(n) - n, n) + np.repeat(block + lo, n)
+    s = np.maximum(np.asarray(a_start)[ia], bs[ib])
+    e = np.minimum(np.asarray(a_end)[ia], be[ib])
+    keep = e > s
+    return s[keep], e[keep], ia[keep]

@@ -68,39 +68,38 @@ def handovers_frame(res: RunResult, names: list[str]) -> pd.DataFrame:
     })
 
 
-def _by_sat(frame: pd.DataFrame) -> dict[int, tuple[np.ndarray, np.ndarray]]:
-    out = {}
-    for sat, g in frame.groupby("sat", sort=False):
-        a, b = iv.union(g["start_s"].to_numpy(), g["end_s"].to_numpy())
-        out[int(sat)] = (a, b)
-    return out
-
-
 class SiteCoverage:
     """Visibility facts of one terminal that every policy's outage accounting needs."""
 
     def __init__(self, windows: pd.DataFrame, passes: pd.DataFrame, duration_s: float):
         self.duration_s = duration_s
-        self.win_by_sat = _by_sat(windows)
-        self.pass_by_sat = _by_sat(passes)
-        self.win_start = windows["start_s"].to_numpy()
-        self.win_end = windows["end_s"].to_numpy()
-        self.pass_start = passes["start_s"].to_numpy()
-        self.pass_end = passes["end_s"].to_numpy()
+        self.win_sat = windows["sat"].to_numpy(dtype=np.int64)
+        self.win_start = windows["start_s"].to_numpy(dtype=float)
+        self.win_end = windows["end_s"].to_numpy(dtype=float)
+        self.pass_sat = passes["sat"].to_numpy(dtype=np.int64)
+        self.pass_start = passes["start_s"].to_numpy(dtype=float)
+        self.pass_end = passes["end_s"].to_numpy(dtype=float)
         self.any_visible = iv.union(self.win_start, self.win_end)
         self.any_floor = iv.union(self.pass_start, self.pass_end)
+
+    def in_window(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        return iv.covered_same_key(self.win_sat, self.win_start, self.win_end, sat, t_s)
+
+    def in_pass(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        return iv.covered_same_key(self.pass_sat, self.pass_start, self.pass_end, sat, t_s)
+
+
+def _links(res: RunResult) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    links = res.records.links
+    return (np.array([x[0] for x in links], dtype=np.int64), np.array([x[2] for x in links]),
+            np.array([x[3] for x in links]))
 
 
 def usable_intervals(res: RunResult, cov: SiteCoverage) -> tuple[np.ndarray, np.ndarray]:
     """Time attached to a satellite that is in view and not weak."""
-    parts_a, parts_b = [], []
-    for sat, _, start, end, _, _ in res.records.links:
-        wa, wb = cov.win_by_sat.get(int(sat), (np.zeros(0), np.zeros(0)))
-        a, b = iv.intersect(np.array([start]), np.array([end]), wa, wb)
-        parts_a.append(a)
-        parts_b.append(b)
-    a, b = iv.union(np.concatenate(parts_a) if parts_a else np.zeros(0),
-                    np.concatenate(parts_b) if parts_b else np.zeros(0))
+    ls, la, lb = _links(res)
+    a, b, _ = iv.intersect_same_key(ls, la, lb, cov.win_sat, cov.win_start, cov.win_end)
+    a, b = iv.union(a, b)
     weak = res.records.weak
     if weak:
         wa, wb = iv.union(np.array([w[0] for w in weak]), np.array([w[1] for w in weak]))
@@ -117,24 +116,22 @@ def outages_frame(res: RunResult, cov: SiteCoverage) -> tuple[pd.DataFrame, dict
     sa, sb = iv.subtract(sa, sb, ua, ub)      # a break never overlaps service; keep it exact
     oa, ob = iv.complement(*iv.union(np.concatenate([ua, sa]), np.concatenate([ub, sb])), 0.0, T)
     # split outage at every change of the facts its cause depends on
-    links = res.records.links
-    la = np.array([x[2] for x in links])
-    lb = np.array([x[3] for x in links])
-    ls = np.array([x[0] for x in links], dtype=np.int64)
+    ls, la, lb = _links(res)
+    on_link = np.isin(cov.pass_sat, ls)
     cuts = np.concatenate([oa, ob, cov.any_visible[0], cov.any_visible[1], cov.any_floor[0],
-                           cov.any_floor[1], la, lb] +
-                          [np.concatenate(cov.pass_by_sat.get(int(s), (np.zeros(0), np.zeros(0))))
-                           for s in np.unique(ls)] +
-                          [np.array([w[0] for w in res.records.weak] + [w[1] for w in res.records.weak])])
-    starts, ends, causes = [], [], []
+                           cov.any_floor[1], la, lb, cov.pass_start[on_link], cov.pass_end[on_link],
+                           np.array([w[0] for w in res.records.weak] +
+                                    [w[1] for w in res.records.weak], dtype=float)])
     if oa.size:
-        for a, b in zip(oa, ob):
-            inner = cuts[(cuts > a) & (cuts < b)]
-            edges = np.unique(np.concatenate([[a], inner, [b]]))
-            starts.append(edges[:-1])
-            ends.append(edges[1:])
-        s = np.concatenate(starts)
-        e = np.concatenate(ends)
+        # cut points strictly inside an outage interval split it; every piece keeps one cause
+        k = np.searchsorted(oa, cuts, side="right") - 1
+        inside = (k >= 0) & (cuts > oa[np.maximum(k, 0)]) & (cuts < ob[np.maximum(k, 0)])
+        edges = np.unique(np.concatenate([oa, ob, cuts[inside]]))
+        s, e = edges[:-1], edges[1:]
+        mid_all = 0.5 * (s + e)
+        k = np.searchsorted(oa, mid_all, side="right") - 1
+        keep = (k >= 0) & (mid_all < ob[np.maximum(k, 0)])
+        s, e = s[keep], e[keep]
         mid = 0.5 * (s + e)
         vis = iv.count_at(cov.win_start, cov.win_end, mid) > 0
         floor = iv.count_at(cov.pass_start, cov.pass_end, mid) > 0
@@ -142,22 +139,18 @@ def outages_frame(res: RunResult, cov: SiteCoverage) -> tuple[pd.DataFrame, dict
         in_link = (li >= 0) & (mid < lb[np.maximum(li, 0)]) if la.size else np.zeros(mid.size, bool)
         serving = np.where(in_link, ls[np.maximum(li, 0)] if la.size else -1, -1)
         cause = np.full(mid.size, "failure", dtype=object)
-        for i in np.flatnonzero(in_link):
-            sat = int(serving[i])
-            pa, pb = cov.pass_by_sat.get(sat, (np.zeros(0), np.zeros(0)))
-            wa, wb = cov.win_by_sat.get(sat, (np.zeros(0), np.zeros(0)))
-            if iv.count_at(wa, wb, mid[i:i + 1])[0] > 0:
-                cause[i] = "weak-signal"
-            elif iv.count_at(pa, pb, mid[i:i + 1])[0] > 0:
-                cause[i] = "obstruction"
+        il = np.flatnonzero(in_link)
+        in_win = cov.in_window(serving[il], mid[il])
+        in_pass = cov.in_pass(serving[il], mid[il])
+        cause[il[in_win]] = "weak-signal"
+        cause[il[~in_win & in_pass]] = "obstruction"
         cause[~vis & floor] = "obstruction"
         cause[~vis & ~floor] = "no-satellite"
         # join neighbours with one cause
         same = np.concatenate([[False], (cause[1:] == cause[:-1]) & (s[1:] == e[:-1])])
-        grp = np.cumsum(~same) - 1
-        s = pd.Series(s).groupby(grp).min().to_numpy()
-        e = pd.Series(e).groupby(grp).max().to_numpy()
-        cause = pd.Series(cause).groupby(grp).first().to_numpy()
+        first = np.flatnonzero(~same)
+        last = np.append(first[1:] - 1, s.size - 1)
+        s, e, cause = s[first], e[last], cause[first]
     else:
         s = e = np.zeros(0)
         cause = np.zeros(0, dtype=object)
