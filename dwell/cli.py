@@ -95,8 +95,10 @@ def passes(config: Path, out: Path) -> None:
 @click.option("--kernel", type=click.Choice(["fast", "naive"]), default="fast", show_default=True,
               help="Event kernel, or the per-measurement reference (slow; for checking).")
 @click.option("--check/--no-check", default=False, help="Verify accounting invariants.")
+@click.option("--workers", default=2, show_default=True, type=click.IntRange(1),
+              help="Processes to split the terminals over (results do not depend on it).")
 @guarded
-def run(config: Path, out: Path, kernel: str, check: bool) -> None:
+def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None:
     """Run every terminal under every policy; write tables to a folder."""
     from .config import load_scenario
     from .run import execute, summary_text
@@ -105,7 +107,7 @@ def run(config: Path, out: Path, kernel: str, check: bool) -> None:
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
-    tables = execute(scen, out, kernel=kernel, check=check, warn=_warn,
+    tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
                      progress=Progress("simulated hours", None).hours)
     click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
     click.echo(f"tables -> {out}")

@@ -79,6 +79,7 @@ class MeasurementStream:
         self.buf: dict[str, np.ndarray] = {}
         self.buf_t = np.zeros(0)
         self.buf_k0 = 0                   # row index of the buffer's first row
+        self._width = 1                   # columns in use (the buffer may be wider)
         self.built_rows = 0
         self.built = -1
         self.pin = 0                      # rows below this may be dropped
@@ -101,7 +102,8 @@ class MeasurementStream:
         if k_a < self.buf_k0:
             raise RuntimeError(f"measurement rows from {k_a} were dropped before they were read")
         lo, hi = k_a - self.buf_k0, k_b - self.buf_k0
-        v = {f: self.buf[f][lo:hi] for f in FIELDS}
+        w = self._width
+        v = {f: self.buf[f][lo:hi, :w] for f in FIELDS}
         final = k_b >= self.K
         t = self.buf_t[lo:hi]
         return Rows(k_a, t, v["sat"], v["win"], v["rsrp_dbm"], v["snr_db"], v["elevation_deg"],
@@ -115,22 +117,37 @@ class MeasurementStream:
         self.pin = min(self._readers.values()) if self._readers else max(self.pin, k)
 
     def _append(self, blk: dict[str, np.ndarray], k_a: int, k_b: int) -> None:
-        """Keep rows from the pin on, then add the new block (one copy of the kept part)."""
-        keep = max(0, min(self.pin, k_a) - self.buf_k0)
-        width = max(blk["sat"].shape[1], self.buf["sat"].shape[1] if self.buf else 0)
-        out = {}
+        """Add a block after the buffered rows.  The buffer has spare capacity (doubling), so
+        appends are amortised O(block); when full it is reallocated, keeping rows from the pin
+        on.  Data is never moved inside an array a caller may hold a view of."""
+        nb = k_b - k_a
+        width = blk["sat"].shape[1]
+        used = self.built_rows - self.buf_k0
+        cap = self.buf["sat"].shape[0] if self.buf else 0
+        have_w = self.buf["sat"].shape[1] if self.buf else 0
+        if not self.buf or used + nb > cap or width > have_w:
+            keep = max(0, min(self.pin, k_a) - self.buf_k0) if self.buf else 0
+            live = used - keep
+            new_cap = max(2 * (live + nb), 4 * self.B)
+            new_w = max(width, have_w)
+            new = {}
+            for f in FIELDS:
+                fill = -1 if blk[f].dtype.kind == "i" else np.nan
+                arr = np.full((new_cap, new_w), fill, dtype=blk[f].dtype)
+                if self.buf and live:
+                    arr[:live, :have_w] = self.buf[f][keep:used]
+                new[f] = arr
+            t = np.zeros(new_cap)
+            if self.buf and live:
+                t[:live] = self.buf_t[keep:used]
+            self.buf, self.buf_t = new, t
+            self.buf_k0 += keep
+            used = live
         for f in FIELDS:
-            parts = [self.buf[f][keep:]] if self.buf else []
-            parts.append(blk[f])
-            fill = -1 if blk[f].dtype.kind == "i" else np.nan
-            parts = [p if p.shape[1] == width else np.concatenate(
-                [p, np.full((p.shape[0], width - p.shape[1]), fill, dtype=p.dtype)], axis=1)
-                for p in parts]
-            out[f] = parts[0] if len(parts) == 1 else np.concatenate(parts, axis=0)
-        self.buf_t = np.concatenate([self.buf_t[keep:], np.arange(k_a, k_b) * self.period_s])
-        self.buf = out
-        self.buf_k0 += keep
+            self.buf[f][used:used + nb, :width] = blk[f]
+        self.buf_t[used:used + nb] = np.arange(k_a, k_b) * self.period_s
         self.built_rows = k_b
+        self._width = max(self._width, width)
 
     def window_end_covering(self, sat: int, t_s: float) -> float | None:
         """End of ``sat``'s visibility window open at ``t_s``, or None if it is not in view."""
@@ -226,7 +243,8 @@ class MeasurementStream:
         seg_start = np.ones(win.size, bool)
         seg_start[1:] = win[1:] != win[:-1]
         seg_w = win[seg_start]
-        key = self.k_site * 1_000_003 + sat
+        key = self.site.index * 1_000_003 + sat   # the terminal's scenario index: splits of
+        # a run across workers must not change its draws
         std = float(self.lp["shadowing_std_db"])
         if std > 0:
             z = noise.normal(self.seed, _SHADOW, key, k)

@@ -116,13 +116,50 @@ def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
     return head + "\n" + format_table(summary, cols) + "\n"
 
 
-def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
-            progress: Callable[[float, float], None] | None = None,
-            warn: Callable[[str], None] | None = None) -> RunTables:
-    """Run a scenario and write its folder atomically."""
-    results, geo = run_scenario(scen, kernel=kernel, progress=progress, warn=warn)
+def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: str = "fast",
+               check: bool = False, progress: Callable[[float, float], None] | None = None,
+               warn: Callable[[str], None] | None = None) -> RunTables:
+    """Run (some of) a scenario's terminals and build their tables."""
+    results, geo = run_scenario(scen, kernel=kernel, terminals=terminals, progress=progress,
+                                warn=warn)
     tables = build_tables(scen, results, geo, check=check)
     geo.close()
+    return tables
+
+
+_SHARED: dict = {}   # the scenario a forked worker inherits (scenario objects hold SGP4 records)
+
+
+def _worker(args) -> dict[str, pd.DataFrame]:
+    terminals, kernel, check = args
+    return run_tables(_SHARED["scen"], terminals, kernel=kernel, check=check).frames
+
+
+def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
+            progress: Callable[[float, float], None] | None = None,
+            warn: Callable[[str], None] | None = None, workers: int = 1) -> RunTables:
+    """Run a scenario and write its folder atomically.
+
+    With ``workers`` > 1 the terminals are split into contiguous groups run by forked worker
+    processes (each propagates the constellation itself); every terminal's results depend on
+    nothing but its own index, so the tables are identical to a one-process run.
+    """
+    n = len(scen.terminals)
+    workers = max(1, min(workers, n))
+    if workers == 1:
+        tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn)
+    else:
+        import multiprocessing as mp
+        bounds = np.linspace(0, n, workers + 1).round().astype(int)
+        groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+        _SHARED["scen"] = scen
+        try:
+            with mp.get_context("fork").Pool(len(groups)) as pool:
+                parts = pool.map(_worker, [(g, kernel, check) for g in groups])
+        finally:
+            _SHARED.clear()
+        frames = {name: pd.concat([p[name] for p in parts], ignore_index=True) for name in TABLES}
+        tables = RunTables(frames, [])
     write_run_folder(scen, tables, out_dir)
     return tables
 

@@ -36,8 +36,10 @@ def run_scenario(scen: Scenario, *, kernel: str = "fast", geometry: Geometry | N
                  terminals: list[int] | None = None, policy_tables: list[dict] | None = None,
                  progress: Callable[[float, float], None] | None = None,
                  warn: Callable[[str], None] | None = None) -> tuple[list[RunResult], Geometry]:
-    """Run the chosen terminals (default all) under the chosen policies (default all)."""
-    geo = geometry or Geometry(scen, warn=warn)
+    """Run the chosen terminals (scenario indices, default all) under the chosen policies
+    (default all).  A geometry passed in must hold those terminals' sites."""
+    chosen = list(range(len(scen.terminals))) if terminals is None else list(terminals)
+    geo = geometry or Geometry(scen, warn=warn, sites=[scen.sites[i] for i in chosen])
     period = float(scen.scenario["measurement_period_s"])
     tables = scen.policies if policy_tables is None else policy_tables
     if not tables:
@@ -47,8 +49,12 @@ def run_scenario(scen: Scenario, *, kernel: str = "fast", geometry: Geometry | N
     env = simpy.Environment()
     results: list[RunResult] = []
     cls = KERNELS[kernel]
-    for k in (range(len(geo.sites)) if terminals is None else terminals):
-        term = scen.terminals[k]
+    position = {site.index: j for j, site in enumerate(geo.sites)}
+    for ti in chosen:
+        if ti not in position:
+            raise ValueError(f"the geometry does not hold terminal {ti}")
+        k = position[ti]
+        term = scen.terminals[ti]
         stream = MeasurementStream(geo, k, scen.link, period, scen.seed)
         for table in tables:
             policy = policy_mod.build(table, period, scen.base_dir)

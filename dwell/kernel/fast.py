@@ -156,14 +156,16 @@ class FastRun:
 
     def _loss(self, rows, col, sat, e0, horizon) -> Decision | None:
         """First end of a serving window at which another satellite is in view."""
-        present = col >= 0
-        ends = np.unique(rows.end_s[np.flatnonzero(present), col[present]])
-        for e in np.concatenate([[e0], ends[ends > e0]]):
-            e = float(e)
+        e = e0
+        while True:
             if e > horizon or e >= self.s.duration_s:
                 return None
-            r = rows.row_at(e, self.s.period_s)
+            r = rows.row_at(e)
             c = self.policy.select(rows, r, e, exclude=sat)
             if c >= 0:
                 return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r)
-        return None
+            # nobody in view at that end: try the serving satellite's next window end
+            later = np.flatnonzero((col >= 0) & (rows.t_s > e))
+            if later.size == 0:
+                return None
+            e = float(rows.end_s[later[0], col[later[0]]])

@@ -30,8 +30,7 @@ def _builtin() -> None:
 
 def load_rule(rule: str, source: str, where: str, base_dir: Path | None = None) -> type[Policy]:
     """The policy class for a rule name or a ``file.py:Class`` plug-in reference."""
-    if not RULES:
-        _builtin()
+    _builtin()   # idempotent: importing one rule module directly must not hide the others
     if rule in RULES:
         return RULES[rule]
     if ":" in rule and rule.split(":", 1)[0].endswith(".py"):

@@ -117,16 +117,36 @@ class EventA3(Policy):
                               np.flatnonzero(valid[r0]), t_first)
         measured, enter, leave, lhs = self._conditions(rows, link)
         eb = held_runs(enter, rows.win, m)
-        a, j = np.nonzero(eb)
-        tau = self.expiry(rows.t_s[a], rows.t_s[a + m])
-        ok = tau < rows.end_s[a, j]
-        a, j, tau = a[ok], j[ok], tau[ok]
-        # guard still on at the first entries: follow list memberships cell by cell
+        eb[: n - m] &= tau[:, None] < rows.end_s[: n - m]      # entries whose window outlasts them
         lb = held_runs(leave, rows.win, m)
-        best_t, best_cells = math.inf, []
-        cells = {}
-        for aa, jj, tt in zip(a.tolist(), j.tolist(), tau.tolist()):
-            cells.setdefault((jj, int(rows.win[aa, jj])), []).append((aa, tt))
+        # guard still on at the first entries: the handover goes at the first instant >= g
+        # at which some cell is listed.  Each cell's first listing is handled vectorised;
+        # cells that left and might re-enter before that instant are followed one by one.
+        cols = np.flatnonzero(eb.any(axis=0))
+        a1 = np.argmax(eb[:, cols], axis=0)
+        w1 = rows.win[a1, cols]
+        tau1 = tau[a1]
+        end1 = rows.end_s[a1, cols]
+        idx = np.arange(n)[:, None]
+        after = lb[:, cols] & (idx > (a1 + m)[None, :]) & (rows.win[:, cols] == w1[None, :])
+        has_l = after.any(axis=0)
+        b1 = np.argmax(after, axis=0)
+        lam = np.where(has_l, np.minimum(self.expiry(rows.t_s[b1], rows.t_s[np.minimum(b1 + m, n - 1)]),
+                                         end1), end1)
+        x = np.maximum(tau1, g)
+        listed = x < lam
+        best_t = float(x[listed].min()) if listed.any() else math.inf
+        best_cells = cols[listed & (x == best_t)].tolist() if listed.any() else []
+        # the rest: cells whose first listing ended before the guard (they may re-enter), and
+        # later windows in the same columns; only entries not after best_t can matter
+        a_all, j_all = np.nonzero(eb)
+        listed_w = np.full(rows.sat.shape[1], -2, dtype=np.int64)
+        listed_w[cols[listed]] = w1[listed]
+        w_all = rows.win[a_all, j_all]
+        keep = (listed_w[j_all] != w_all) & (np.maximum(tau[a_all], g) <= best_t)
+        cells: dict[tuple[int, int], list] = {}
+        for aa, jj, ww in zip(a_all[keep].tolist(), j_all[keep].tolist(), w_all[keep].tolist()):
+            cells.setdefault((jj, ww), []).append((aa, float(tau[aa])))
         for (jj, w), entries in cells.items():
             rows_w = np.flatnonzero(rows.win[:, jj] == w)
             end_w = float(rows.end_s[rows_w[0], jj])
@@ -138,15 +158,15 @@ class EventA3(Policy):
                 later = leave_rows[leave_rows > aa + m]
                 if later.size:
                     b = int(later[0])
-                    lam = float(self.expiry(rows.t_s[b], rows.t_s[b + m]))
-                    lam = min(lam, end_w)
+                    lam_c = float(self.expiry(rows.t_s[b], rows.t_s[b + m]))
+                    lam_c = min(lam_c, end_w)
                 else:
-                    b, lam = n, end_w
-                x = max(tt, g)
-                if x < lam:
-                    if x < best_t:
-                        best_t, best_cells = x, [jj]
-                    elif x == best_t:
+                    b, lam_c = n, end_w
+                xc = max(tt, g)
+                if xc < lam_c:
+                    if xc < best_t:
+                        best_t, best_cells = xc, [jj]
+                    elif xc == best_t:
                         best_cells.append(jj)
                     break
                 if b >= n:
@@ -154,7 +174,7 @@ class EventA3(Policy):
                 k_free = b + m
         if not best_cells:
             return None
-        return self._pick(rows, lhs, np.array(best_cells), best_t)
+        return self._pick(rows, lhs, np.array(sorted(set(best_cells))), best_t)
 
     def _pick(self, rows: Rows, lhs: np.ndarray, cols: np.ndarray, t_ho: float) -> Decision:
         r = rows.row_at(t_ho, self.period_s)
