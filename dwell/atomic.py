@@ -19,6 +19,23 @@ class OutputError(Exception):
     """Writing an output failed; the message names the path."""
 
 
+def check_output(target: str | Path, *, folder: bool) -> None:
+    """Fail early (before any work) if ``target`` cannot be written: raises OutputError."""
+    target = Path(target)
+    if target.exists():
+        if folder and not target.is_dir():
+            raise OutputError(f"{target}: exists and is not a folder")
+        if not folder and target.is_dir():
+            raise OutputError(f"{target}: is a folder, a file is expected")
+    parent = target.parent
+    while not parent.exists():
+        parent = parent.parent
+    if not parent.is_dir():
+        raise OutputError(f"{target}: cannot create it, {parent} is not a folder")
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise OutputError(f"{target}: cannot write in {parent} (permission denied)")
+
+
 @contextmanager
 def atomic_path(target: str | Path, suffix: str = "") -> Iterator[Path]:
     """Yield a temporary path in the target's folder; on success rename it onto the target."""

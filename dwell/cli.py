@@ -13,7 +13,7 @@ from pathlib import Path
 import click
 
 from . import __version__
-from .atomic import OutputError
+from .atomic import OutputError, check_output
 from .errors import InputError
 
 
@@ -72,6 +72,7 @@ def passes(config: Path, out: Path) -> None:
     from .outputs import pass_summary, passes_frame, visible_frame
     from .tables import write_frame
 
+    check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
     geo = Geometry(scen, warn=_warn)
     geo.run_all(Progress("geometry chunks"))
@@ -103,6 +104,7 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None
     from .config import load_scenario
     from .run import execute, summary_text
 
+    check_output(out, folder=True)
     scen = load_scenario(config, warn=_warn)
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
@@ -131,6 +133,7 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float) -
     from .config import load_scenario
     from .plots import mask_plot
 
+    check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
     names = scen.terminal_names()
     if terminal not in names:
@@ -194,6 +197,7 @@ def bench(quick: bool, out: Path) -> None:
     """Measure speed and memory against reference implementations, side by side."""
     from .bench import format_bench, run_bench, write_bench
 
+    check_output(out, folder=True)
     df, exps = run_bench(quick, lambda msg: click.echo(msg, err=True))
     write_bench(df, exps, out)
     click.echo(format_bench(df, exps), nl=False)
@@ -217,6 +221,8 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
     from .sweep.execute import estimate_cost_s
 
     plan = load_sweep(sweep_file)
+    if not dry_run:
+        check_output(out, folder=True)
     left = pending(plan, out) if out.exists() else plan.tasks
     n_left = sum(len(v) for v in left.values())
     cost = estimate_cost_s(plan)

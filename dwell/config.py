@@ -157,11 +157,25 @@ def _array_of_tables(raw: dict, key: str, source: str, required: bool) -> list[d
     return value
 
 
-def _absolute(params: dict, base_dir: Path) -> None:
+def _absolute(params: dict, base_dir: Path, source: str = "", where: str = "") -> None:
+    """Make file references absolute (relative ones are relative to the config's folder)."""
     for key in PATH_KEYS:
         if isinstance(params.get(key), str):
-            p = Path(params[key])
-            params[key] = str(p if p.is_absolute() else (base_dir / p).resolve())
+            params[key] = _absolute_path(params[key], base_dir, source, f"{where}.{key}")
+    rule = params.get("rule")
+    if isinstance(rule, str) and ":" in rule and rule.split(":", 1)[0].endswith(".py"):
+        file, cls = rule.split(":", 1)
+        params["rule"] = _absolute_path(file, base_dir, source, f"{where}.rule") + ":" + cls
+
+
+def _absolute_path(value: str, base_dir: Path, source: str, where: str) -> str:
+    if "\x00" in value:
+        raise InputError(source, where, value, "a file path must not contain a NUL character")
+    try:
+        p = Path(value)
+        return str(p if p.is_absolute() else (base_dir / p).resolve())
+    except (ValueError, OSError) as exc:
+        raise InputError(source, where, value, f"not a usable file path ({exc})") from None
 
 
 def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
@@ -186,14 +200,14 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
     for i, table in enumerate(_array_of_tables(raw, "constellation", source, True)):
         where = f"constellation[{i + 1}]"
         kind = table.get("kind")
-        if kind not in SOURCES:
+        if not isinstance(kind, str) or kind not in SOURCES:
             check_table({"kind": kind} if kind is not None else {}, CONSTELLATION_COMMON,
                         source, where)
         spec = {**CONSTELLATION_COMMON, **SOURCES[kind].keys}
         params = check_table(table, spec, source, where)
         if params["name"] is None:
             params["name"] = f"{kind.replace('-', '')}{i + 1}"
-        _absolute(params, base_dir)
+        _absolute(params, base_dir, source, where)
         consts.append(params)
 
     terms = []
@@ -206,11 +220,14 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         names.add(params["name"])
         obstruction.check_terminal(params, source, where)
         hardware.check_terminal(params, source, where)
-        _absolute(params, base_dir)
+        _absolute(params, base_dir, source, where)
         terms.append(params)
 
     link_params = link.check_table(raw.get("link", {}), source)
-    pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source, warn)
+    pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source, warn,
+                                 base_dir)
+    for i, params in enumerate(pols):
+        _absolute(params, base_dir, source, f"policy[{i + 1}]")
 
     out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
     if build:

@@ -130,9 +130,12 @@ def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: st
 _SHARED: dict = {}   # the scenario a forked worker inherits (scenario objects hold SGP4 records)
 
 
-def _worker(args) -> dict[str, pd.DataFrame]:
+def _worker(args) -> tuple[dict[str, pd.DataFrame], list[str]]:
     terminals, kernel, check = args
-    return run_tables(_SHARED["scen"], terminals, kernel=kernel, check=check).frames
+    messages: list[str] = []      # handed back for the parent to print: a worker's stderr
+    frames = run_tables(_SHARED["scen"], terminals, kernel=kernel, check=check,  # may be a copy
+                        warn=messages.append).frames
+    return frames, messages
 
 
 def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
@@ -158,7 +161,14 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
                 parts = pool.map(_worker, [(g, kernel, check) for g in groups])
         finally:
             _SHARED.clear()
-        frames = {name: pd.concat([p[name] for p in parts], ignore_index=True) for name in TABLES}
+        seen: set[str] = set()
+        for _, messages in parts:     # every worker propagates: report each warning once
+            for msg in messages:
+                if msg not in seen and warn is not None:
+                    warn(msg)
+                seen.add(msg)
+        frames = {name: pd.concat([p[0][name] for p in parts], ignore_index=True)
+                  for name in TABLES}
         tables = RunTables(frames, [])
     write_run_folder(scen, tables, out_dir)
     return tables

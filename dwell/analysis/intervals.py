@@ -85,6 +85,8 @@ def count_before(ref_key: np.ndarray, ref_t: np.ndarray, q_key: np.ndarray, q_t:
     (``inclusive``) or t_ref < t.  Exact (a lexsort, no float packing of keys and times)."""
     ref_key = np.asarray(ref_key, dtype=np.int64)
     q_key = np.asarray(q_key, dtype=np.int64)
+    if ref_key.size == 0 or q_key.size == 0:
+        return np.zeros(q_key.size, dtype=np.int64)
     keys = np.concatenate([ref_key, q_key])
     t = np.concatenate([np.asarray(ref_t, dtype=float), np.asarray(q_t, dtype=float)])
     # at equal times references sort first when inclusive (they count), last otherwise
@@ -116,6 +118,9 @@ def intersect_same_key(a_key, a_start, a_end, b_key, b_start, b_end
     """Pairwise intersections of intervals a and b that share a key (each list disjoint within
     a key).  Returns (start, end, index into a) of the non-empty pieces."""
     b_key = np.asarray(b_key, dtype=np.int64)
+    if b_key.size == 0 or np.size(a_key) == 0:
+        z = np.zeros(0)
+        return z, z.copy(), np.zeros(0, dtype=np.int64)
     order = np.lexsort((b_start, b_key))
     bk, bs, be = b_key[order], np.asarray(b_start)[order], np.asarray(b_end)[order]
     # first b of each key in the sorted list

@@ -156,7 +156,7 @@ def _omm(params: dict, ctx: BuildContext) -> list[Satellite]:
         sat = Satrec()
         try:
             omm.initialize(sat, fields, WGS72)
-        except (ValueError, KeyError, TypeError) as exc:
+        except (ValueError, KeyError, TypeError, OverflowError) as exc:
             raise InputError(str(path), f"record {k}", fields.get("OBJECT_NAME"),
                              f"bad OMM field ({exc})") from None
         if sat.error:

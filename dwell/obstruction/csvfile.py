@@ -9,6 +9,16 @@ from pathlib import Path
 from ..errors import InputError
 
 
+def _records(body: str, path: Path):
+    """(line number, cells) per line; a malformed line is an input error naming it."""
+    for number, line in enumerate(body.splitlines(), start=1):
+        try:
+            cells = next(csv.reader([line]), [])
+        except csv.Error as exc:
+            raise InputError(str(path), f"line {number}", line[:40], f"not CSV ({exc})") from None
+        yield number, cells
+
+
 def read_numeric_csv(path: str | Path, columns: tuple[str, ...], *,
                      text_columns: tuple[str, ...] = ()) -> list[tuple[int, dict[str, object]]]:
     """Rows of a CSV whose header holds exactly ``columns`` (any order).
@@ -21,17 +31,15 @@ def read_numeric_csv(path: str | Path, columns: tuple[str, ...], *,
         body = path.read_text(encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(str(path), None, None, f"cannot read: {exc}") from None
-    lines = body.splitlines()
-    reader = csv.reader(lines)
     header = None
     rows: list[tuple[int, dict[str, object]]] = []
-    for number, record in enumerate(reader, start=1):
+    for number, record in _records(body, path):
         if not record or all(not c.strip() for c in record) or record[0].lstrip().startswith("#"):
             continue
         if header is None:
             header = [c.strip() for c in record]
             if sorted(header) != sorted(columns):
-                raise InputError(str(path), "line 1 (header)", ",".join(header),
+                raise InputError(str(path), f"line {number} (header)", ",".join(header),
                                  "header must be " + ",".join(columns))
             continue
         if len(record) != len(header):

@@ -71,8 +71,13 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
                 policies.append({**p, "name": internal})
                 owner[internal] = (j, p.get("name") or p["rule"])
         combined["policy"] = policies
-        scen = scenario_from_dict(combined, "sweep task", Path(base_dir))
-        results, geo = run_scenario(scen)
+        import sys
+
+        def warn(msg: str) -> None:       # workers report on the sweep's stderr
+            print(f"{msg} [task {task_key}]", file=sys.stderr)
+
+        scen = scenario_from_dict(combined, "sweep task", Path(base_dir), warn=warn)
+        results, geo = run_scenario(scen, warn=warn)
         tables = build_tables(scen, results, geo, check=True)
         geo.close()
         frames = tables.frames

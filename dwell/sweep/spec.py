@@ -193,6 +193,8 @@ def load_sweep(path: str | Path) -> SweepPlan:
     base_path = Path(sw["base"])
     if not base_path.is_absolute():
         base_path = path.resolve().parent / base_path
+    if not base_path.is_file():
+        raise InputError(source, "sweep.base", sw["base"], f"base scenario not found ({base_path})")
     base_raw = read_toml(base_path)
     base_dir = base_path.resolve().parent
     overrides = raw.get("overrides", {})
