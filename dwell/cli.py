@@ -74,7 +74,7 @@ def passes(config: Path, out: Path) -> None:
 
     check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
-    geo = Geometry(scen, warn=_warn)
+    geo = Geometry(scen, warn=_warn, slots=False)
     geo.run_all(Progress("geometry chunks"))
     df = passes_frame(geo)
     write_frame(df, out, scen)

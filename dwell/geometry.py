@@ -54,25 +54,25 @@ class _Ledger:
         ids = np.empty(n, dtype=np.int64)
         slots = np.full(n, -1, dtype=np.int64)
         order = np.argsort(w.start_s, kind="stable")
-        still_open: dict[int, int] = {}
-        still_slot: dict[int, int] = {}
-        for k in order:
-            s = int(w.sat[k])
-            cont = w.start_cause[k] == CAUSE_EDGE and w.start_s[k] == t0_s and s in self.open
-            if cont:
-                ids[k] = self.open[s]
-                slot = self.open_slot.get(s, -1)
-            else:
-                ids[k] = self.next_id
-                self.next_id += 1
-                slot = self._take_slot(float(w.start_s[k])) if self.with_slots else -1
-            slots[k] = slot
-            if w.end_cause[k] == CAUSE_EDGE:
-                still_open[s] = int(ids[k])
-                still_slot[s] = slot
-            elif self.with_slots:
-                heapq.heappush(self.busy, (float(w.end_s[k]), slot))
-        self.open, self.open_slot = still_open, still_slot
+        # intervals continuing from the previous chunk keep their id (and slot); few per chunk
+        cont = (w.start_cause == CAUSE_EDGE) & (w.start_s == t0_s)
+        cont &= np.isin(w.sat, np.fromiter(self.open, dtype=np.int64, count=len(self.open)))
+        for k in np.flatnonzero(cont):
+            ids[k] = self.open[int(w.sat[k])]
+            slots[k] = self.open_slot.get(int(w.sat[k]), -1)
+        fresh = order[~cont[order]]
+        ids[fresh] = self.next_id + np.arange(fresh.size)
+        self.next_id += int(fresh.size)
+        if self.with_slots:
+            is_fresh = ~cont
+            for k in order:                    # greedy interval colouring, in start order
+                if is_fresh[k]:
+                    slots[k] = self._take_slot(float(w.start_s[k]))
+                if w.end_cause[k] != CAUSE_EDGE:
+                    heapq.heappush(self.busy, (float(w.end_s[k]), int(slots[k])))
+        edge = np.flatnonzero(w.end_cause == CAUSE_EDGE)
+        self.open = {int(w.sat[k]): int(ids[k]) for k in edge}
+        self.open_slot = {int(w.sat[k]): int(slots[k]) for k in edge}
         return ids, slots
 
     def _take_slot(self, start_s: float) -> int:
@@ -113,7 +113,8 @@ class Geometry:
     """Chunked visibility of every site of a scenario."""
 
     def __init__(self, scen: Scenario, *, warn: Callable[[str], None] | None = None,
-                 opts: PassOptions | None = None, sites: list[Site] | None = None):
+                 opts: PassOptions | None = None, sites: list[Site] | None = None,
+                 slots: bool = True):
         self.scen = scen
         self.warn = warn or (lambda msg: None)
         sc = scen.scenario
@@ -131,7 +132,7 @@ class Geometry:
             rate = max(rate, s.mean_motion_rad_s * (1 + e) ** 2 / (1 - e * e) ** 1.5)
         speed = max([site.max_speed_km_s for site in self.sites] + [0.0])
         self.max_rate_rad_s = rate * 1.02 + self.earth.rate_rad_s + speed / 6300.0
-        self._win_ledger = [_Ledger(True) for _ in self.sites]
+        self._win_ledger = [_Ledger(slots) for _ in self.sites]   # slots: only streams need them
         self._pass_ledger = [_Ledger(False) for _ in self.sites]
         self.index = [WindowIndex() for _ in self.sites]
         self._done = -1

@@ -155,19 +155,39 @@ class SkyChunk:
             out[off] = self.states(sat[off], t_s[off], velocity=False)[0]
         return out
 
-    def fine_positions(self, per_interval: int) -> np.ndarray:
-        """Positions of every satellite at ``per_interval`` evenly spaced points per grid
-        interval (grid points included): shape (S, (n-1)*q + 1, 3).  Shared by all terminals."""
+    def directions(self) -> tuple[np.ndarray, np.ndarray]:
+        """Unit position vectors (S, n, 3) and each satellite's largest radius in the chunk
+        (S,): what screening needs, computed once for all terminals."""
+        if getattr(self, "_dirs", None) is None:
+            r = np.linalg.norm(self.r_km, axis=-1)
+            self._dirs = (self.r_km / r[..., None], r.max(axis=1))
+        return self._dirs
+
+    def sub_positions(self, sat: np.ndarray, interval: np.ndarray, per_interval: int
+                      ) -> np.ndarray:
+        """Positions at ``per_interval`` + 1 evenly spaced points of grid intervals (both ends
+        included), for the given (satellite, interval) pairs: shape (pairs, q + 1, 3).
+
+        Computed on first request and kept for the chunk, so terminals that screen the same
+        satellites share the work; memory is reserved lazily (untouched pages cost nothing).
+        """
         q = int(per_interval)
-        if q not in self._fine:
-            w = _hermite_weights(np.arange(q) / q)                     # (q, 6)
-            p0, p1 = self._pack[:, :-1], self._pack[:, 1:]              # (S, n-1, 9)
-            blocks = np.concatenate([p0.reshape(p0.shape[:2] + (3, 3)),
-                                     p1.reshape(p1.shape[:2] + (3, 3))], axis=2)  # (S,n-1,6,3)
-            fine = np.einsum("qk,snkc->snqc", w, blocks, optimize=True)
-            fine = fine.reshape(fine.shape[0], -1, 3)
-            self._fine = {q: np.concatenate([fine, self.r_km[:, -1:, :]], axis=1)}
-        return self._fine[q]
+        n_sat, n_int = self.r_km.shape[0], self.grid_s.size - 1
+        if getattr(self, "_sub_q", None) != q:
+            self._sub_q = q
+            self._sub = np.empty((n_sat, n_int, q + 1, 3))
+            self._sub_done = np.zeros((n_sat, n_int), dtype=bool)
+            self._sub_w = _hermite_weights(np.arange(q + 1) / q)           # (q+1, 6)
+        need = ~self._sub_done[sat, interval]
+        if need.any():
+            key = np.unique(sat[need].astype(np.int64) * n_int + interval[need])
+            ns, ni = key // n_int, key % n_int
+            p0 = self._pack[ns, ni].reshape(-1, 3, 3)
+            p1 = self._pack[ns, ni + 1].reshape(-1, 3, 3)
+            blocks = np.concatenate([p0, p1], axis=1)                       # (k, 6, 3)
+            self._sub[ns, ni] = np.matmul(self._sub_w[None], blocks)
+            self._sub_done[ns, ni] = True
+        return self._sub[sat, interval]
 
 
 class Propagator:

@@ -39,7 +39,10 @@ FULL = [
     ("passes-many", {"duration_s": 86400.0, "satellites": 1584, "n_terminals": 100,
                      "ref_terminals": 10}),
     ("kernel", {"duration_s": 86400.0, "satellites": 1584}),
+    ("kernel", {"duration_s": 86400.0, "satellites": 1584, "shadowing_std_db": 0.0,
+                "measurement_noise_db": 0.0, "hysteresis_db": 2.0}),
     ("demo", {"config": "configs/demo.toml"}),
+    ("stress-terminals", {"n_terminals": 200, "duration_s": 86400.0}),
     ("memory", {"kind": "week-1-terminal", "duration_s": 7 * 86400.0}),
     ("memory", {"kind": "10000-satellites", "duration_s": 86400.0}),
 ] + [("scale", {"axis": "satellites", "value": v, "base": FULL_BASE})
@@ -82,11 +85,11 @@ def run_bench(quick: bool, progress: Callable[[str], None]) -> tuple[pd.DataFram
 
 
 def format_bench(df: pd.DataFrame, exps: dict) -> str:
-    lines = [f"{'case':<30} {'ours s':>9} {'ref s':>9} {'ratio':>8} {'target':>8} {'peak MiB':>9}  notes"]
+    lines = [f"{'case':<38} {'ours s':>9} {'ref s':>9} {'ratio':>8} {'target':>8} {'peak MiB':>9}  notes"]
     lines.append("-" * len(lines[0]))
     for _, r in df.iterrows():
         if isinstance(r.get("error"), str):
-            lines.append(f"{r['case']:<30} error: {r['error']}")
+            lines.append(f"{r['case']:<38} error: {r['error']}")
             continue
         def g(k):
             v = r.get(k)
@@ -94,12 +97,12 @@ def format_bench(df: pd.DataFrame, exps: dict) -> str:
         ours, ref, ratio, target = g("ours_s"), g("reference_s"), g("ratio"), g("target_ratio")
         notes = []
         for key in ("max_event_diff_s", "unmatched_events", "same_handovers", "handovers",
-                    "satellites", "passes_s", "run_1_terminal_s"):
+                    "mean_dwell_s", "satellites", "passes_s", "run_1_terminal_s"):
             if key in r and r[key] is not None and not (isinstance(r[key], float) and math.isnan(r[key])):
                 notes.append(f"{key}={r[key]:.3g}" if isinstance(r[key], float) else f"{key}={r[key]}")
         name = r["case"] + (f" {r['value']:g}" if "value" in r and g("value") is not None else "")
         fmt = lambda v, f: (f % v) if v is not None else "-"  # noqa: E731
-        lines.append(f"{name:<30} {fmt(ours, '%9.2f')} {fmt(ref, '%9.2f')} {fmt(ratio, '%8.1f')} "
+        lines.append(f"{name:<38} {fmt(ours, '%9.2f')} {fmt(ref, '%9.2f')} {fmt(ratio, '%8.1f')} "
                      f"{fmt(target, '%8.1f')} {fmt(g('peak_mib'), '%9.0f')}  {' '.join(notes)}")
     if exps:
         lines.append("growth exponents (time ~ size^k, pass finding): " +
