@@ -26,6 +26,8 @@ QUICK = [
     ("passes-many", {"duration_s": 10800.0, "satellites": 720, "n_terminals": 10,
                      "ref_terminals": 2}),
     ("kernel", {"duration_s": 10800.0, "satellites": 720}),
+    ("kernel", {"duration_s": 10800.0, "satellites": 720, "shadowing_std_db": 0.0,
+                "measurement_noise_db": 0.0, "hysteresis_db": 2.0}),
     ("memory", {"kind": "week-1-terminal", "duration_s": 21600.0}),
     ("scale", {"axis": "terminals", "value": 1,
                "base": {"satellites": 720, "terminals": 1, "duration_s": 7200.0}}),

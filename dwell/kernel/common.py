@@ -153,6 +153,19 @@ def angle_between_deg(a: tuple[float, float] | None, b: tuple[float, float] | No
     return math.degrees(math.acos(max(-1.0, min(1.0, c))))
 
 
+class KernelRun:
+    """What every kernel's per-run process starts from: the policy, the execution record
+    keeper, and a reader registration on the terminal's measurement stream."""
+
+    def __init__(self, env, policy: Policy, execution: "Execution"):
+        self.env = env
+        self.policy = policy
+        self.ex = execution
+        self.s = execution.s
+        self.stream = execution.stream
+        self.stream.release(0, self)          # register as a reader from the start
+
+
 class Execution:
     """Handover execution and record keeping for one run (shared by both kernels)."""
 

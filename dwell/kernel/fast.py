@@ -16,22 +16,17 @@ import simpy
 
 from ..measure import row_at_or_after
 from ..policies.base import Decision, Link, Policy
-from .common import PRIORITY, Execution, first_rlf_s, monitoring
+from .common import PRIORITY, Execution, KernelRun, first_rlf_s, monitoring
 
 FIRST_ROWS = 64
 
 
-class FastRun:
+class FastRun(KernelRun):
     """One terminal under one policy in the event kernel."""
 
     def __init__(self, env: simpy.Environment, policy: Policy, execution: Execution):
-        self.env = env
-        self.policy = policy
-        self.ex = execution
-        self.s = execution.s
-        self.stream = execution.stream
+        super().__init__(env, policy, execution)
         self._n = FIRST_ROWS                  # rows to look at first; adapts to link lengths
-        self.stream.release(0, self)          # register as a reader from the start
         self.process = env.process(self._run())
 
     # ---- helpers -------------------------------------------------------------------------------

@@ -17,18 +17,13 @@ import simpy
 
 from ..measure import row_at_or_after
 from ..policies.base import Decision, Link, Policy, Rows
-from .common import PRIORITY, Execution
+from .common import PRIORITY, Execution, KernelRun
 
 
-class NaiveRun:
+class NaiveRun(KernelRun):
     def __init__(self, env: simpy.Environment, policy: Policy, execution: Execution):
-        self.env = env
-        self.policy = policy
-        self.ex = execution
-        self.s = execution.s
-        self.stream = execution.stream
+        super().__init__(env, policy, execution)
         self._block: Rows | None = None
-        self.stream.release(0, self)          # register as a reader from the start
         self.process = env.process(self._run())
 
     def _rows_at(self, k: int) -> tuple[Rows, int]:

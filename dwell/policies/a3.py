@@ -41,17 +41,13 @@ A3_KEYS = {
 }
 
 
-@register
-class EventA3(Policy):
-    rule = "a3"
-    KEYS = A3_KEYS
+class TimeToTriggerRule(Policy):
+    """A rule whose condition must hold for ``time_to_trigger_s`` (sample-and-hold: at
+    floor(TTT/dt) + 1 consecutive measurements); warns on values outside the TS 38.331 set."""
 
     def __init__(self, params, period_s):
         super().__init__(params, period_s)
-        p = params
-        self.off, self.hys = float(p["offset_db"]), float(p["hysteresis_db"])
-        self.ocn, self.ocp = float(p["neighbour_offset_db"]), float(p["serving_offset_db"])
-        self.ttt = float(p["time_to_trigger_s"])
+        self.ttt = float(params["time_to_trigger_s"])
         self.m = ttt_rows(self.ttt, self.period_s)
         self.lookahead_rows = self.m
 
@@ -60,6 +56,18 @@ class EventA3(Policy):
         super().check(params, source, where, warn)
         warn_if_not_in(params["time_to_trigger_s"], TTT_VALUES_MS, source,
                        f"{where}.time_to_trigger_s", warn)
+
+
+@register
+class EventA3(TimeToTriggerRule):
+    rule = "a3"
+    KEYS = A3_KEYS
+
+    def __init__(self, params, period_s):
+        super().__init__(params, period_s)
+        p = params
+        self.off, self.hys = float(p["offset_db"]), float(p["hysteresis_db"])
+        self.ocn, self.ocp = float(p["neighbour_offset_db"]), float(p["serving_offset_db"])
 
     def score(self, rows, r):
         return np.nan_to_num(rows.rsrp_dbm[r], nan=-np.inf)

@@ -25,8 +25,8 @@ import numpy as np
 from ..errors import InputError
 from ..schema import ge, number, text
 from . import register
-from .a3 import A3_KEYS, ttt_rows
-from .base import TTT_VALUES_MS, Decision, Link, Policy, Rows, held_runs, warn_if_not_in
+from .a3 import A3_KEYS, TimeToTriggerRule
+from .base import Decision, Link, Rows, held_runs
 
 CONDITIONS = ("t1", "d1", "a3", "t1+a3", "d1+a3")
 _TARGET = {"elevation": lambda rows: rows.elevation_deg,
@@ -35,7 +35,7 @@ _TARGET = {"elevation": lambda rows: rows.elevation_deg,
 
 
 @register
-class ConditionalHandover(Policy):
+class ConditionalHandover(TimeToTriggerRule):
     rule = "cho"
     KEYS = {
         "condition": text("d1", choices=CONDITIONS, doc="execution condition"),
@@ -52,17 +52,11 @@ class ConditionalHandover(Policy):
 
     def __init__(self, params, period_s):
         super().__init__(params, period_s)
-        p = params
-        self.parts = set(p["condition"].split("+"))
-        self.ttt = float(p["time_to_trigger_s"])
-        self.m = ttt_rows(self.ttt, self.period_s)
-        self.lookahead_rows = self.m
+        self.parts = set(params["condition"].split("+"))
 
     @classmethod
     def check(cls, params, source, where, warn):
         super().check(params, source, where, warn)
-        warn_if_not_in(params["time_to_trigger_s"], TTT_VALUES_MS, source,
-                       f"{where}.time_to_trigger_s", warn)
         if "d1" in params["condition"] and \
                 params["d1_candidate_km"] - params["d1_hysteresis_km"] <= 0:
             raise InputError(source, f"{where}.d1_candidate_km", params["d1_candidate_km"],
