@@ -19,6 +19,17 @@ class OutputError(Exception):
     """Writing an output failed; the message names the path."""
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _publish_mode(path: Path, folder: bool) -> None:
+    """Temporary files and folders are private (0600/0700); the result gets the usual mode."""
+    os.chmod(path, (0o777 if folder else 0o666) & ~_umask())
+
+
 def check_output(target: str | Path, *, folder: bool) -> None:
     """Fail early (before any work) if ``target`` cannot be written: raises OutputError."""
     target = Path(target)
@@ -50,6 +61,7 @@ def atomic_path(target: str | Path, suffix: str = "") -> Iterator[Path]:
     tmp_path = Path(tmp)
     try:
         yield tmp_path
+        _publish_mode(tmp_path, folder=False)
         os.replace(tmp_path, target)
     except OSError as exc:
         tmp_path.unlink(missing_ok=True)
@@ -83,6 +95,9 @@ def atomic_dir(target: str | Path) -> Iterator[Path]:
         raise OutputError(f"{target}: cannot create ({exc.strerror or exc})") from None
     try:
         yield tmp
+        _publish_mode(tmp, folder=True)
+        for inner in tmp.rglob("*"):
+            _publish_mode(inner, folder=inner.is_dir())
         if target.exists():
             old = target.with_name(f".{target.name}.old-{os.getpid()}")
             os.replace(target, old)

@@ -178,13 +178,36 @@ def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> 
     with atomic_dir(out_dir) as tmp:
         for name in TABLES:
             write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
-        (tmp / "run.toml").write_text(run_toml(scen))
+        (tmp / "run.toml").write_text(run_toml(scen, out_dir))
         (tmp / "summary.txt").write_text(summary_text(scen, tables.frames["summary"]))
 
 
-def run_toml(scen: Scenario) -> str:
+def run_toml(scen: Scenario, folder: str | Path | None = None) -> str:
+    """The resolved configuration as TOML; file references relative to ``folder`` (where the
+    run.toml will live) so that the folder and its inputs can move together."""
+    import os
+
+    from .config import PATH_KEYS
+    resolved = scen.resolved()
+    if folder is not None:
+        here = Path(folder).resolve()
+
+        def rel(p: str) -> str:
+            try:
+                return os.path.relpath(p, here)
+            except ValueError:          # another drive: keep it absolute
+                return p
+        for table in resolved.get("constellation", []) + resolved.get("terminal", []):
+            for key in PATH_KEYS:
+                if isinstance(table.get(key), str):
+                    table[key] = rel(table[key])
+        for table in resolved.get("policy", []):
+            rule = table.get("rule", "")
+            if ":" in rule and rule.split(":", 1)[0].endswith(".py"):
+                file, cls = rule.split(":", 1)
+                table["rule"] = rel(file) + ":" + cls
     head = ("# Fully resolved configuration of this run: `dwell run run.toml -o DIR` repeats it.\n"
             f"# config sha256 {scen.config_hash()}\n")
-    return head + tomli_w.dumps(scen.resolved())
+    return head + tomli_w.dumps(resolved)
 
 

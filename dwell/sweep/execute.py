@@ -94,7 +94,7 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
                     df = df[df["policy"].astype(str).isin(mine)].copy()
                     df["policy"] = df["policy"].astype(str).map(lambda k: owner[k][1])
                     write_frame(df.reset_index(drop=True), tmp / f"{name}.parquet", run_scen)
-                (tmp / "run.toml").write_text(run_toml(run_scen))
+                (tmp / "run.toml").write_text(run_toml(run_scen, out / "_runs" / r["key"]))
             summ = frames["summary"]
             summ = summ[summ["policy"].astype(str).isin(mine)].copy()
             summ["policy"] = summ["policy"].astype(str).map(lambda k: owner[k][1])
