@@ -50,7 +50,7 @@ def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool =
     links, hos, outs, rows, ccdfs = [], [], [], [], []
     for res in results:
         lf = links_frame(res, names)
-        hf = handovers_frame(res, names)
+        hf = handovers_frame(res, names, float(scen.link.get("frequency_ghz", 2.0)))
         of, budget = outages_frame(res, cov[res.site_index])
         vis = visible[visible["terminal"] == res.terminal]
         row = {"terminal": res.terminal, "policy": res.policy}

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..kernel import RunResult
+from ..link import doppler_hz, one_way_delay_ms
 from ..kernel.common import HANDOVER_FIELDS
 from . import intervals as iv
 
@@ -41,7 +42,7 @@ def links_frame(res: RunResult, names: list[str]) -> pd.DataFrame:
     return out
 
 
-def handovers_frame(res: RunResult, names: list[str]) -> pd.DataFrame:
+def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0) -> pd.DataFrame:
     df = pd.DataFrame(res.records.handovers, columns=HANDOVER_FIELDS)
     names_arr = np.asarray(names, dtype=object)
     frm = df["from_sat"].to_numpy(dtype=np.int64)
@@ -65,6 +66,12 @@ def handovers_frame(res: RunResult, names: list[str]) -> pd.DataFrame:
         "interruption_s": df["interruption_s"].to_numpy(dtype=float),
         "repoint_s": df["repoint_s"].to_numpy(dtype=float),
         "ping_pong": pp,
+        # one-way delay and Doppler of both links at the handover (the jumps a terminal must
+        # absorb); Doppler = -f rdot / c
+        "from_delay_ms": one_way_delay_ms(df["from_range_km"].to_numpy(dtype=float)),
+        "to_delay_ms": one_way_delay_ms(df["to_range_km"].to_numpy(dtype=float)),
+        "from_doppler_hz": doppler_hz(df["from_range_rate_km_s"].to_numpy(dtype=float), frequency_ghz),
+        "to_doppler_hz": doppler_hz(df["to_range_rate_km_s"].to_numpy(dtype=float), frequency_ghz),
     })
 
 

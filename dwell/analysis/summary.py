@@ -115,6 +115,9 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         "slew_mean_deg": float(slew.mean()) if slew.size else 0.0,
         "slew_p95_deg": float(np.percentile(slew, 95)) if slew.size else 0.0,
         "slew_max_deg": float(slew.max()) if slew.size else 0.0,
+        "doppler_step_mean_hz": _abs_mean(handovers, "to_doppler_hz", "from_doppler_hz"),
+        "doppler_step_max_hz": _abs_max(handovers, "to_doppler_hz", "from_doppler_hz"),
+        "delay_step_max_ms": _abs_max(handovers, "to_delay_ms", "from_delay_ms"),
         "mbb_overlap_fraction": prep_s / duration_s,
         "mbb_apertures_needed": int(need),
         "mean_in_view": float(np.sum(vis_dur * vis_n) / duration_s),
@@ -125,6 +128,23 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         row[f"outage_{cause.replace('-', '_')}_fraction"] = float(
             (real.loc[sel, "end_utc"] - real.loc[sel, "start_utc"]).sum() / duration_s)
     return row
+
+
+def _steps(df: pd.DataFrame, a: str, b: str) -> np.ndarray:
+    if a not in df.columns or b not in df.columns or len(df) == 0:
+        return np.zeros(0)
+    d = np.abs(df[a].to_numpy(dtype=float) - df[b].to_numpy(dtype=float))
+    return d[np.isfinite(d)]
+
+
+def _abs_mean(df, a, b) -> float:
+    d = _steps(df, a, b)
+    return float(d.mean()) if d.size else math.nan
+
+
+def _abs_max(df, a, b) -> float:
+    d = _steps(df, a, b)
+    return float(d.max()) if d.size else math.nan
 
 
 def dwell_ccdf(links: pd.DataFrame) -> pd.DataFrame:

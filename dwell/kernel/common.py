@@ -84,7 +84,8 @@ class Records:
 
 HANDOVER_FIELDS = ("time_s", "from_sat", "to_sat", "trigger", "from_elevation_deg",
                    "to_elevation_deg", "from_rsrp_dbm", "to_rsrp_dbm", "slew_angle_deg",
-                   "aperture", "interruption_s", "repoint_s")
+                   "aperture", "interruption_s", "repoint_s", "from_range_km", "to_range_km",
+                   "from_range_rate_km_s", "to_range_rate_km_s")
 
 
 def first_rlf_s(oos: np.ndarray, ins: np.ndarray, t_s: np.ndarray, n310: int, n311: int,
@@ -128,6 +129,10 @@ def monitoring(rows: Rows, sat: int, q_out: float, q_in: float
     snr = np.where(vis, rows.snr_db[np.arange(rows.n), np.maximum(col, 0)], -np.inf)
     weak = vis & (snr < q_out)
     return col, ~vis | weak, vis & (snr >= q_in), weak
+
+
+def _value(arr: np.ndarray | None, r: int, c: int) -> float:
+    return float(arr[r, c]) if (arr is not None and c >= 0) else math.nan
 
 
 def pointing(rows: Rows, r: int, sat: int) -> tuple[float, float] | None:
@@ -212,7 +217,10 @@ class Execution:
             d.time_s, self.link_sat, d.target, trigger,
             float(el[r, cf]) if cf >= 0 else nan, float(el[r, ct]) if ct >= 0 else nan,
             float(rows.rsrp_dbm[r, cf]) if cf >= 0 else nan,
-            float(rows.rsrp_dbm[r, ct]) if ct >= 0 else nan, slew, ap, brk, repoint))
+            float(rows.rsrp_dbm[r, ct]) if ct >= 0 else nan, slew, ap, brk, repoint,
+            float(rows.range_km[r, cf]) if cf >= 0 else nan,
+            float(rows.range_km[r, ct]) if ct >= 0 else nan,
+            _value(rows.range_rate_km_s, r, cf), _value(rows.range_rate_km_s, r, ct)))
         self._next_aperture = ap
         return old_end, brk, old_end + brk
 

@@ -79,6 +79,7 @@ class Rows:
     end_s: np.ndarray          # (R, W) end of each cell's visibility window (predicted set)
     certain_until_s: float = math.inf  # rows beyond this instant were not provided
     final: bool = False        # these rows reach the end of the scenario
+    range_rate_km_s: np.ndarray | None = None  # (R, W) when the stream provides it
     _cols: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
