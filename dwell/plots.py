@@ -135,13 +135,12 @@ def timeline_plot(visible, links, handovers, terminal: str, hour: int, start, pa
     """One hour of one terminal: satellites in view, and for each policy a lane of its links
     (alternating shades, satellite names on the longer ones) with handover instants marked."""
     t0 = hour * 3600.0
-    t1 = t0 + 3600.0
 
     def minutes(col):
         return ((col - start).dt.total_seconds().to_numpy() - t0) / 60.0
 
-    l = links[links["terminal"].astype(str) == terminal]
-    pols = _policies(l)
+    lk = links[links["terminal"].astype(str) == terminal]
+    pols = _policies(lk)
     fig, (a0, ax) = plt.subplots(2, 1, figsize=(13, 1.8 + 0.55 * len(pols)), sharex=True,
                                  gridspec_kw={"height_ratios": [1, max(2, len(pols) * 0.55)]})
     v = visible[visible["terminal"].astype(str) == terminal]
@@ -154,7 +153,7 @@ def timeline_plot(visible, links, handovers, terminal: str, hour: int, start, pa
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     h = handovers[handovers["terminal"].astype(str) == terminal]
     for i, pol in enumerate(pols):
-        g = l[l["policy"].astype(str) == pol]
+        g = lk[lk["policy"].astype(str) == pol]
         ls, le = minutes(g["start_utc"]), minutes(g["end_utc"])
         keep = (le > 0) & (ls < 60)
         base = colors[i % len(colors)]

@@ -14,7 +14,6 @@ from dwell import analytic as an
 from dwell.compare import compare_run
 from dwell.config import scenario_from_dict
 from dwell.geometry import Geometry
-from dwell.outputs import passes_frame
 from dwell.run import execute
 
 START = "2027-05-10T00:00:00Z"

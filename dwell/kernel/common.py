@@ -79,7 +79,7 @@ class Records:
     def signature(self) -> list[tuple]:
         """What two kernels must agree on: every handover (time, from, to, trigger) and link."""
         return ([("ho", round(h[0], 9), h[1], h[2], h[3]) for h in self.handovers] +
-                [("link", l[0], round(l[2], 9), round(l[3], 9), l[4], l[5]) for l in self.links])
+                [("link", k[0], round(k[2], 9), round(k[3], 9), k[4], k[5]) for k in self.links])
 
 
 HANDOVER_FIELDS = ("time_s", "from_sat", "to_sat", "trigger", "from_elevation_deg",

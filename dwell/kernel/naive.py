@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 import simpy
 
 from ..measure import row_at_or_after

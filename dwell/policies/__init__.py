@@ -50,6 +50,9 @@ def load_rule(rule: str, source: str, where: str, base_dir: Path | None = None) 
         if not (isinstance(cls, type) and issubclass(cls, Policy)):
             raise InputError(source, f"{where}.rule", rule,
                              f"{cls_name} is not a dwell.policies.Policy subclass in {path}")
+        if cls.step is Policy.step and cls.scan is Policy.scan:
+            raise InputError(source, f"{where}.rule", rule,
+                             f"{cls_name} must implement step (and may implement scan)")
         return cls
     raise InputError(source, f"{where}.rule", rule,
                      "unknown rule; known rules: " + ", ".join(sorted(RULES)) +

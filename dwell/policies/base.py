@@ -31,7 +31,6 @@ from typing import Any, Callable, ClassVar
 
 import numpy as np
 
-from ..errors import InputError
 from ..schema import Field, between, ge, integer, number, text
 
 # 3GPP TS 38.331 value sets (TimeToTrigger; RLF-TimersAndConstants), from the standard's ASN.1
@@ -183,7 +182,8 @@ class Policy:
         link.state.clear()
 
     def step(self, rows: Rows, r: int, link: Link) -> Decision | None:
-        raise NotImplementedError(f"policy {self.rule!r} implements neither scan nor step")
+        # reached only by a rule overriding neither step nor scan; load_rule refuses those
+        raise TypeError(f"policy {self.rule!r} implements neither scan nor step")
 
 
 def better_than_serving(rows: Rows, score: np.ndarray, serving_col: np.ndarray,
