@@ -18,30 +18,25 @@ from scipy import stats
 
 from . import analytic as an
 from .config import Scenario, load_scenario
+from .analysis.summary import hour_edges, per_hour, ratio_interval
 from .frames import MEAN_EARTH_RADIUS_KM
 
 SEED = 20270510  # fixed: the same run folder always gives the same intervals
 
 
-def _hourly(a: np.ndarray, b: np.ndarray, w: np.ndarray, duration_s: float) -> np.ndarray:
-    """Per clock hour: integral of a step function (value w on [a, b)) over the hour."""
-    edges = np.arange(0.0, duration_s + 3600.0, 3600.0)
-    edges[-1] = min(edges[-1], duration_s)
-    edges = np.unique(np.minimum(edges, duration_s))
-    out = np.zeros(edges.size - 1)
-    for i in range(edges.size - 1):   # one vectorised pass per hour
-        out[i] = np.sum(w * np.clip(np.minimum(b, edges[i + 1]) - np.maximum(a, edges[i]), 0, None))
-    return out, np.diff(edges)
+def _hourly(a: np.ndarray, b: np.ndarray, w: np.ndarray, duration_s: float
+            ) -> tuple[np.ndarray, np.ndarray]:
+    """Per clock hour: integral of a step function (value w on [a, b)), and the hour lengths."""
+    edges = hour_edges(duration_s)
+    return per_hour(a, b, edges, w), np.diff(edges)
 
 
 def _ratio_ci(num: np.ndarray, den: np.ndarray) -> tuple[float, float]:
+    """Interval of a time average; a point when the hours cannot vary it."""
     if num.size < 3 or np.allclose(num / np.maximum(den, 1e-9), (num / np.maximum(den, 1e-9))[0]):
         v = float(num.sum() / den.sum())
         return v, v
-    res = stats.bootstrap((num, den), lambda x, y, axis=-1: np.sum(x, axis=axis) / np.sum(y, axis=axis),
-                          paired=True, vectorized=True, n_resamples=1999, method="percentile",
-                          random_state=np.random.default_rng(SEED))
-    return float(res.confidence_interval.low), float(res.confidence_interval.high)
+    return ratio_interval(num, den, SEED, n_resamples=1999)
 
 
 def _row(terminal, policy, quantity, sim, lo, hi, ana, note="") -> dict:

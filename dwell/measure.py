@@ -250,14 +250,14 @@ class MeasurementStream:
         if std > 0:
             z = noise.normal(self.seed, _SHADOW, key, k)
             x, last = linkmod.ar1_blocks(z, seg_start, self.rho_shadow,
-                                         self._carried(self._carry_shadow, seg_w, k, seg_start))
+                                         self._carried(self._carry_shadow, seg_w))
             self._store(self._carry_shadow, seg_w, last)
             rsrp += std * x
             snr += std * x
         if self.nlos_db is not None:
             z = noise.normal(self.site.los.seed, _NLOS, key, k)
             x, last = linkmod.ar1_blocks(z, seg_start, self.rho_nlos,
-                                         self._carried(self._carry_nlos, seg_w, k, seg_start))
+                                         self._carried(self._carry_nlos, seg_w))
             self._store(self._carry_nlos, seg_w, last)
             nlos = ~los_mod.is_los(self.site.los.environment, lk["elevation_deg"], x)
             rsrp -= np.where(nlos, self.nlos_db, 0.0)
@@ -267,7 +267,7 @@ class MeasurementStream:
         if mstd > 0:
             meas = rsrp + mstd * noise.normal(self.seed, _MEASURE, key, k)
         filt, last = linkmod.l3_filter_blocks(meas, seg_start, self.alpha,
-                                              self._carried(self._carry_filter, seg_w, k, seg_start))
+                                              self._carried(self._carry_filter, seg_w))
         self._store(self._carry_filter, seg_w, last)
         return {"rsrp_dbm": filt, "snr_db": snr, "elevation_deg": lk["elevation_deg"],
                 "azimuth_deg": lk["azimuth_deg"], "range_km": lk["range_km"],
@@ -293,8 +293,7 @@ class MeasurementStream:
         return out
 
     @staticmethod
-    def _carried(store: dict[int, float], seg_w: np.ndarray, k: np.ndarray,
-                 seg_start: np.ndarray) -> np.ndarray:
+    def _carried(store: dict[int, float], seg_w: np.ndarray) -> np.ndarray:
         """Carried state per segment: the window's state from the previous block, else NaN."""
         return np.array([store.get(int(w), np.nan) for w in seg_w])
 

@@ -274,26 +274,28 @@ class Sky:
             self._cache.popitem(last=False)
         return out
 
+    def _by_chunk(self, t_s: np.ndarray):
+        """(chunk, mask) for the chunks the instants fall in."""
+        cidx = np.minimum(self.n_chunks - 1, np.maximum(0, np.floor(t_s / self.chunk_s))).astype(int)
+        for c in np.unique(cidx):
+            yield self.chunk(int(c)), cidx == c
+
     def positions_on_grid(self, sat: np.ndarray, t_s: np.ndarray, step_s: float) -> np.ndarray:
         """Positions at grid instants k * step_s, spanning chunks (see SkyChunk)."""
         sat, t_s = np.broadcast_arrays(np.asarray(sat), np.asarray(t_s, dtype=float))
-        cidx = np.minimum(self.n_chunks - 1, np.maximum(0, np.floor(t_s / self.chunk_s))).astype(int)
         pos = np.empty(t_s.shape + (3,))
-        for c in np.unique(cidx):
-            m = cidx == c
-            pos[m] = self.chunk(int(c)).positions_on_grid(sat[m], t_s[m], step_s)
+        for chunk, m in self._by_chunk(t_s):
+            pos[m] = chunk.positions_on_grid(sat[m], t_s[m], step_s)
         return pos
 
     def states(self, sat: np.ndarray, t_s: np.ndarray, *, velocity: bool = True
                ) -> tuple[np.ndarray, np.ndarray | None]:
         """States at arbitrary times, spanning chunks as needed (times in [0, duration])."""
         sat, t_s = np.broadcast_arrays(np.asarray(sat), np.asarray(t_s, dtype=float))
-        cidx = np.minimum(self.n_chunks - 1, np.maximum(0, np.floor(t_s / self.chunk_s))).astype(int)
         pos = np.empty(t_s.shape + (3,))
         vel = np.empty(t_s.shape + (3,)) if velocity else None
-        for c in np.unique(cidx):
-            m = cidx == c
-            p, q = self.chunk(int(c)).states(sat[m], t_s[m], velocity=velocity)
+        for chunk, m in self._by_chunk(t_s):
+            p, q = chunk.states(sat[m], t_s[m], velocity=velocity)
             pos[m] = p
             if velocity:
                 vel[m] = q

@@ -27,26 +27,32 @@ from . import intervals as iv
 CCDF_POINTS = 200
 
 
-def _hour_bins(duration_s: float) -> np.ndarray:
-    return np.arange(0.0, duration_s + 3600.0 - 1e-9, 3600.0)[: max(2, math.ceil(duration_s / 3600) + 1)]
+def hour_edges(duration_s: float) -> np.ndarray:
+    """Edges of the clock hours of a scenario, the last one cut at its end."""
+    return np.unique(np.minimum(np.arange(0.0, duration_s + 3600.0, 3600.0), duration_s))
 
 
-def _bootstrap_ratio(num: np.ndarray, den: np.ndarray, seed: int) -> tuple[float, float]:
-    """95 % percentile-bootstrap interval of sum(num)/sum(den) over resampled units."""
+def ratio_interval(num: np.ndarray, den: np.ndarray, seed: int, n_resamples: int = 999
+                   ) -> tuple[float, float]:
+    """95 % percentile-bootstrap interval of sum(num)/sum(den) over resampled units (NaN when
+    fewer than 3 units or all alike)."""
     ok = den > 0
     if ok.sum() < 3 or np.all(num[ok] == num[ok][0]) and np.all(den[ok] == den[ok][0]):
         return math.nan, math.nan
     res = stats.bootstrap((num, den), lambda a, b, axis=-1: np.sum(a, axis=axis) / np.sum(b, axis=axis),
-                          paired=True, vectorized=True, n_resamples=999, method="percentile",
-                          confidence_level=0.95, random_state=np.random.default_rng(seed))
+                          paired=True, vectorized=True, n_resamples=n_resamples,
+                          method="percentile", confidence_level=0.95,
+                          random_state=np.random.default_rng(seed))
     return float(res.confidence_interval.low), float(res.confidence_interval.high)
 
 
-def _per_hour_overlap(a: np.ndarray, b: np.ndarray, edges: np.ndarray) -> np.ndarray:
-    """Time of intervals [a, b) inside each hour bin."""
+def per_hour(a: np.ndarray, b: np.ndarray, edges: np.ndarray,
+             weight: np.ndarray | float = 1.0) -> np.ndarray:
+    """Integral over each hour bin of a step function equal to ``weight`` on [a, b)."""
     out = np.zeros(edges.size - 1)
     for i in range(edges.size - 1):   # one pass per hour (tens), intervals vectorised
-        out[i] = np.sum(np.clip(np.minimum(b, edges[i + 1]) - np.maximum(a, edges[i]), 0, None))
+        out[i] = np.sum(weight * np.clip(np.minimum(b, edges[i + 1]) - np.maximum(a, edges[i]),
+                                         0, None))
     return out
 
 
@@ -57,12 +63,12 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
     hours = duration_s / 3600.0
     n_ho = int(len(handovers))
     ho_lo, ho_hi = poisson_rate_interval(n_ho, hours)
-    edges = _hour_bins(duration_s)
-    hour_len = np.diff(np.minimum(edges, duration_s))
+    edges = hour_edges(duration_s)
+    hour_len = np.diff(edges)
     t_ho = handovers["time_utc"].to_numpy(dtype=float)
-    per_hour = np.histogram(t_ho, bins=edges)[0] if n_ho else np.zeros(edges.size - 1)
+    ho_per_hour = np.histogram(t_ho, bins=edges)[0] if n_ho else np.zeros(edges.size - 1)
     full = hour_len >= 3600.0 - 1e-6
-    worst = int(per_hour[full].max()) if full.any() else int(per_hour.max(initial=0))
+    worst = int(ho_per_hour[full].max()) if full.any() else int(ho_per_hour.max(initial=0))
 
     complete = links[(links["start_reason"] != "initial") & (links["end_reason"] != "end")]
     dw = (complete if len(complete) else links)["dwell_s"].to_numpy(dtype=float)
@@ -71,7 +77,7 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         h = np.clip(np.searchsorted(edges, d_start, side="right") - 1, 0, edges.size - 2)
         dsum = np.bincount(h, weights=dw, minlength=edges.size - 1)
         dcnt = np.bincount(h, minlength=edges.size - 1).astype(float)
-        dw_lo, dw_hi = _bootstrap_ratio(dsum, dcnt, seed)
+        dw_lo, dw_hi = ratio_interval(dsum, dcnt, seed)
         q5, q50, q95 = np.percentile(dw, [5, 50, 95])
     else:
         dw_lo = dw_hi = q5 = q50 = q95 = math.nan
@@ -80,8 +86,8 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
     oa = real["start_utc"].to_numpy(dtype=float)
     ob = real["end_utc"].to_numpy(dtype=float)
     out_s = float(np.sum(ob - oa))
-    per_hour_out = _per_hour_overlap(oa, ob, edges)
-    o_lo, o_hi = _bootstrap_ratio(per_hour_out, hour_len, seed + 1)
+    per_hour_out = per_hour(oa, ob, edges)
+    o_lo, o_hi = ratio_interval(per_hour_out, hour_len, seed + 1)
     n_pp = int(handovers["ping_pong"].sum()) if n_ho else 0
     pp_lo, pp_hi = poisson_rate_interval(n_pp, hours)
     slew = handovers["slew_angle_deg"].to_numpy(dtype=float)
