@@ -13,8 +13,9 @@ from pathlib import Path
 import click
 
 from . import __version__
-from .atomic import OutputError, check_output
-from .errors import InputError
+from .io.atomic import OutputError, check_output
+from .io.errors import InputError
+from .io.text import format_table
 
 
 def _warn(msg: str) -> None:
@@ -67,10 +68,10 @@ def main() -> None:
 @guarded
 def passes(config: Path, out: Path) -> None:
     """Find every visibility window (pass) of every terminal; write them to Parquet."""
-    from .config import load_scenario
-    from .geometry import Geometry
-    from .outputs import pass_summary, passes_frame, visible_frame
-    from .tables import write_frame
+    from .io.config import load_scenario
+    from .io.outputs import pass_summary, passes_frame, visible_frame
+    from .io.tables import write_frame
+    from .orbits.geometry import Geometry
 
     check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
@@ -101,7 +102,7 @@ def passes(config: Path, out: Path) -> None:
 @guarded
 def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None:
     """Run every terminal under every policy; write tables to a folder."""
-    from .config import load_scenario
+    from .io.config import load_scenario
     from .run import execute, summary_text
 
     check_output(out, folder=True)
@@ -129,9 +130,9 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float) -
     """Export the elevation mask a terminal sees (one realisation of its canyon)."""
     import numpy as np
 
-    from .atomic import write_text
-    from .config import load_scenario
-    from .plots import mask_plot
+    from .analysis.plots import mask_plot
+    from .io.atomic import write_text
+    from .io.config import load_scenario
 
     check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
@@ -156,9 +157,9 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float) -
 @guarded
 def compare(outdir: Path) -> None:
     """Compare a run's simulated values with analytic formulas (where they apply)."""
-    from .atomic import write_text
-    from .compare import compare_run, format_comparison
-    from .tables import write_frame
+    from .analysis.compare import compare_run, format_comparison
+    from .io.atomic import write_text
+    from .io.tables import write_frame
 
     _need(outdir, "run.toml")
     df = compare_run(outdir)
@@ -181,7 +182,7 @@ def plot(outdir: Path, terminal: str | None, hour: int, policy: str | None) -> N
         from .sweep.plots import plot_sweep
         files = plot_sweep(outdir)
     else:
-        from .report import plot_run
+        from .analysis.report import plot_run
         _need(outdir, "run.toml")
         files = plot_run(outdir, terminal, hour, policy)
     for f in files:
@@ -250,27 +251,6 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
 def _need(outdir: Path, name: str) -> None:
     if not (outdir / name).is_file():
         raise InputError(str(outdir), None, None, f"not a dwell run folder (no {name})")
-
-
-def format_table(df, columns: dict[str, str], digits: int = 3) -> str:
-    """Plain aligned text table of chosen columns (header labels from ``columns``)."""
-    heads = list(columns.values())
-    rows = []
-    for _, r in df.iterrows():
-        cells = []
-        for key in columns:
-            v = r[key]
-            if isinstance(v, float):
-                cells.append(f"{v:.{digits}g}" if abs(v) < 1e4 else f"{v:.0f}")
-            else:
-                cells.append(str(v))
-        rows.append(cells)
-    widths = [max(len(h), *(len(c[i]) for c in rows)) if rows else len(h)
-              for i, h in enumerate(heads)]
-    line = "  ".join(h.ljust(w) for h, w in zip(heads, widths))
-    out = [line, "  ".join("-" * w for w in widths)]
-    out += ["  ".join(c.ljust(w) for c, w in zip(cells, widths)) for cells in rows]
-    return "\n".join(out)
 
 
 if __name__ == "__main__":

@@ -19,11 +19,12 @@ import tomli_w
 
 from .analysis.records import SiteCoverage, handovers_frame, links_frame, outages_frame
 from .analysis.summary import dwell_ccdf, summarize
-from .atomic import atomic_dir
-from .config import Scenario
+from .io.atomic import atomic_dir
+from .io.config import Scenario
+from .io.outputs import passes_frame, visible_frame
+from .io.tables import write_frame
+from .io.text import format_table
 from .kernel import RunResult, run_scenario
-from .outputs import passes_frame, visible_frame
-from .tables import write_frame
 
 TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf")
 
@@ -104,7 +105,6 @@ def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, out
 
 
 def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
-    from .cli import format_table
     cols = {"terminal": "terminal", "policy": "policy", "handovers_per_hour": "HO/h",
             "worst_hour_handovers": "worst h", "dwell_mean_s": "dwell mean s",
             "dwell_median_s": "dwell med s", "outage_fraction": "outage",
@@ -187,7 +187,7 @@ def run_toml(scen: Scenario, folder: str | Path | None = None) -> str:
     run.toml will live) so that the folder and its inputs can move together."""
     import os
 
-    from .config import PATH_KEYS
+    from .io.config import PATH_KEYS
     resolved = scen.resolved()
     if folder is not None:
         here = Path(folder).resolve()

@@ -10,10 +10,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from dwell import analytic as an
-from dwell.compare import compare_run
-from dwell.config import scenario_from_dict
-from dwell.geometry import Geometry
+from dwell.analysis import analytic as an
+from dwell.analysis.compare import compare_run
+from dwell.io.config import scenario_from_dict
+from dwell.orbits.geometry import Geometry
 from dwell.run import execute
 
 START = "2027-05-10T00:00:00Z"

@@ -7,7 +7,7 @@ import pytest
 from scipy.integrate import quad
 from scipy.spatial import cKDTree
 
-from dwell import analytic as A
+from dwell.analysis import analytic as A
 
 R_KM = 6371.0  # mean Earth radius of the 3GPP NTN tables (TR 38.811 / 38.821)
 

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from dwell.errors import InputError
+from dwell.io.errors import InputError
+from dwell.io.schema import check_table
 from dwell.obstruction.canyon import KEYS, Canyon, check, frechet_cdf, sample_law
-from dwell.schema import check_table
 
 ALPHA = 0.01  # significance level of every goodness-of-fit test below
 

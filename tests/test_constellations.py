@@ -27,8 +27,8 @@ from sgp4.earth_gravity import wgs72
 from sgp4.exporter import export_omm
 
 from dwell.cli import main
-from dwell.config import Scenario, scenario_from_dict
-from dwell.errors import InputError
+from dwell.io.config import Scenario, scenario_from_dict
+from dwell.io.errors import InputError
 
 START = "2027-05-10T00:00:00Z"
 TERMINAL = {"name": "t1", "lat_deg": 45.0, "lon_deg": 7.0}

@@ -28,14 +28,20 @@ from click.testing import CliRunner
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from dwell import link, obstruction, policies
+from dwell import obstruction, policies
 from dwell.cli import main
-from dwell.config import CONSTELLATION_COMMON, SCENARIO_KEYS, TERMINAL_KEYS, scenario_from_dict
 from dwell.constellations import SOURCES
-from dwell.errors import InputError
+from dwell.io.config import (
+    CONSTELLATION_COMMON,
+    SCENARIO_KEYS,
+    TERMINAL_KEYS,
+    scenario_from_dict,
+)
+from dwell.io.errors import InputError
+from dwell.io.schema import REQUIRED
 from dwell.obstruction import canyon as canyon_mod
 from dwell.obstruction import los as los_mod
-from dwell.schema import REQUIRED
+from dwell.radio import link
 
 # Bounded, deterministic runs: derandomize fixes the example sequence (no flaky failures), and
 # no database is written into the repository.
@@ -260,7 +266,9 @@ def tle_text(draw) -> str:
         elif op == "dup":
             lines.append(s)
         elif op == "fixsum" and len(s) == 69:
-            from sgp4.io import compute_checksum  # a garbled field behind a valid checksum
+            from sgp4.io import (
+                compute_checksum,  # a garbled field behind a valid checksum
+            )
             s = s[:68] + str(compute_checksum(s[:68] + "0"))
         lines[i] = s
     return "\n".join(lines) + "\n"

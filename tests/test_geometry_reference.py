@@ -24,12 +24,12 @@ from scipy.optimize import brentq, minimize_scalar
 from sgp4.api import SatrecArray, jday
 from skyfield.api import EarthSatellite, load, wgs84
 
-from dwell.config import Scenario, scenario_from_dict
-from dwell.geometry import Geometry
-from dwell.look import look
-from dwell.outputs import visible_frame
-from dwell.passes import CAUSE_FLOOR
-from dwell.sky import Propagator
+from dwell.io.config import Scenario, scenario_from_dict
+from dwell.io.outputs import visible_frame
+from dwell.orbits.geometry import Geometry
+from dwell.orbits.look import look
+from dwell.orbits.passes import CAUSE_FLOOR
+from dwell.orbits.sky import Propagator
 
 TS = load.timescale(builtin=True)
 

@@ -37,9 +37,9 @@ from sgp4.api import WGS72, Satrec
 from sgp4.exporter import export_tle
 
 from dwell.cli import main
-from dwell.config import scenario_from_dict
-from dwell.sky import Propagator
-from dwell.timebase import Epoch, parse_utc
+from dwell.io.config import scenario_from_dict
+from dwell.orbits.sky import Propagator
+from dwell.orbits.timebase import Epoch, parse_utc
 
 START = "2027-05-10T00:00:00Z"
 EPOCH_DAYS = Epoch(parse_utc(START)).sgp4_epoch_days()

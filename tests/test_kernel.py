@@ -21,10 +21,10 @@ import pandas as pd
 import pytest
 
 from dwell.analysis.records import handovers_frame
-from dwell.config import Scenario, scenario_from_dict
-from dwell.geometry import Geometry
+from dwell.io.config import Scenario, scenario_from_dict
+from dwell.io.outputs import passes_frame
 from dwell.kernel import RunResult, run_scenario
-from dwell.outputs import passes_frame
+from dwell.orbits.geometry import Geometry
 from dwell.run import build_tables
 
 START = "2024-03-01T00:00:00Z"

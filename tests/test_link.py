@@ -11,9 +11,9 @@ from scipy import constants
 from scipy.optimize import brentq
 from scipy.special import j1
 
-from dwell import link
-from dwell.errors import InputError
-from dwell.noise import normal, stream_id
+from dwell.io.errors import InputError
+from dwell.radio import link
+from dwell.radio.noise import normal, stream_id
 
 C_M_S = constants.c  # scipy.constants (CODATA): the reference value of c
 

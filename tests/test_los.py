@@ -7,10 +7,10 @@ import pytest
 from scipy.special import ndtr, ndtri
 from scipy.stats import multivariate_normal
 
-from dwell import noise
-from dwell.errors import InputError
+from dwell.io.errors import InputError
+from dwell.io.schema import check_table
 from dwell.obstruction import los as L
-from dwell.schema import check_table
+from dwell.radio import noise
 
 SEED = 20240611
 STREAM = noise.stream_id("test-los")

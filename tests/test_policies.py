@@ -21,7 +21,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from dwell import policies
-from dwell.errors import InputError
+from dwell.io.errors import InputError
 from dwell.policies.base import Decision, Link, Policy, Rows
 
 # Decision times are sums like k * dt + TTT; 1e-9 s covers float rounding of those sums only.

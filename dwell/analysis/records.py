@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 
 from ..kernel import RunResult
-from ..link import doppler_hz, one_way_delay_ms
 from ..kernel.common import HANDOVER_FIELDS
+from ..radio.link import doppler_hz, one_way_delay_ms
 from . import intervals as iv
 
 CAUSES = ("no-satellite", "obstruction", "weak-signal", "failure", "switching")

@@ -3,7 +3,7 @@
 Intervals (95 %):
 
 - handover, ping-pong and failure rates: exact Poisson (Garwood) intervals on the counts
-  (:func:`dwell.analytic.poisson_rate_interval`); handovers are not exactly Poisson, so read
+  (:func:`dwell.analysis.analytic.poisson_rate_interval`); handovers are not exactly Poisson, so read
   them as indicative;
 - mean dwell and outage fraction: percentile bootstrap over clock hours of the scenario
   (``scipy.stats.bootstrap``, resampling whole hours keeps the within-hour correlation),
@@ -21,8 +21,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..analytic import poisson_rate_interval
 from . import intervals as iv
+from .analytic import poisson_rate_interval
 
 CCDF_POINTS = 200
 

@@ -113,8 +113,8 @@ def format_bench(df: pd.DataFrame, exps: dict) -> str:
 
 
 def write_bench(df: pd.DataFrame, exps: dict, out_dir: Path) -> None:
-    from ..atomic import write_text
-    from ..tables import write_frame
+    from ..io.atomic import write_text
+    from ..io.tables import write_frame
     out_dir.mkdir(parents=True, exist_ok=True)
     flat = df.copy()
     for col in flat.columns:

@@ -35,7 +35,7 @@ def sites(n: int, seed: int = 1) -> list[dict]:
 
 def scenario(duration_s: float, constellations: list[dict], terminals: list[dict],
              policies: list[dict] | None = None, **scen):
-    from ..config import scenario_from_dict
+    from ..io.config import scenario_from_dict
     raw = {"scenario": {"start": START, "duration_s": duration_s, **scen},
            "constellation": constellations, "terminal": terminals}
     if policies:
@@ -54,7 +54,7 @@ def _timed(fn):
 
 
 def our_windows(scen):
-    from ..geometry import Geometry
+    from ..orbits.geometry import Geometry
     geo = Geometry(scen, slots=False)
     geo.run_all()
     frames = [geo.window_frame(k) for k in range(len(geo.sites))]
@@ -82,7 +82,8 @@ def skyfield_events(scen, site_params: list[dict], duration_s: float):
 
 def dut1_s() -> float:
     from skyfield.api import load
-    from ..timebase import parse_utc
+
+    from ..orbits.timebase import parse_utc
     ts = load.timescale(builtin=True)
     return float(ts.from_datetime(parse_utc(START)).dut1)
 
@@ -140,11 +141,11 @@ def case_kernel(duration_s: float, satellites: int, shadowing_std_db: float = 2.
     import simpy
 
     from .. import policies as pm
-    from ..geometry import Geometry
     from ..kernel.common import Execution, RunSettings
     from ..kernel.fast import FastRun
     from ..kernel.naive import NaiveRun
-    from ..measure import MeasurementStream
+    from ..orbits.geometry import Geometry
+    from ..radio.measure import MeasurementStream
 
     scen = scenario(duration_s, [shell(satellites)], sites(1),
                     [{**A3_POLICY, "hysteresis_db": hysteresis_db}])
@@ -181,7 +182,7 @@ def case_demo(config: str) -> dict:
 
     from sgp4.api import SatrecArray
 
-    from ..config import load_scenario
+    from ..io.config import load_scenario
     from ..run import execute
     scen = load_scenario(config)
     arr = SatrecArray([s.satrec for s in scen.constellation.satellites])

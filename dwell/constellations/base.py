@@ -10,7 +10,7 @@ from typing import Callable
 import numpy as np
 from sgp4.api import WGS72, Satrec
 
-from ..schema import Field
+from ..io.schema import Field
 
 # SGP4 works in WGS-72 (Vallado et al. 2006); generated orbits use the same constants.
 MU_KM3_S2 = 398600.8

@@ -12,8 +12,8 @@ from sgp4 import omm
 from sgp4.api import WGS72, Satrec
 from sgp4.io import verify_checksum
 
-from ..errors import InputError
-from ..schema import REQUIRED, Field, gt, text
+from ..io.errors import InputError
+from ..io.schema import REQUIRED, Field, gt, text
 from .base import BuildContext, Satellite, Source, from_satrec
 
 EPOCH_SPREAD_WARN_DAYS = 30.0

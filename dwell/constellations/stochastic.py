@@ -3,7 +3,7 @@
 - ``isotropic``: every satellite on its own orbit plane with a uniformly random normal, at a
   uniformly random phase.  At any instant the satellites are independent and uniform on the
   shell: a binomial point process, for which mean number in view and the probability of none in
-  view have closed forms (see :mod:`dwell.analytic`).
+  view have closed forms (see :mod:`dwell.analysis.analytic`).
 - ``random-planes``: P uniformly random planes (or of one fixed inclination with random RAANs),
   S satellites each, equally spaced with a random offset or placed uniformly at random.
 """
@@ -12,8 +12,15 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..schema import REQUIRED, Field, between, ge, gt, integer, lt, number, text
-from .base import BuildContext, Satellite, Source, catalogue_number, circular, uniform_planes
+from ..io.schema import REQUIRED, Field, between, ge, gt, integer, lt, number, text
+from .base import (
+    BuildContext,
+    Satellite,
+    Source,
+    catalogue_number,
+    circular,
+    uniform_planes,
+)
 
 _SEED = Field((int,), None, (ge(0),), "random seed (default: the scenario seed)")
 

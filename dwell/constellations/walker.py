@@ -7,8 +7,8 @@ constellations", J. Br. Interplanet. Soc. 37, 1984).
 
 from __future__ import annotations
 
-from ..errors import InputError
-from ..schema import REQUIRED, between, ge, gt, integer, lt, number
+from ..io.errors import InputError
+from ..io.schema import REQUIRED, between, ge, gt, integer, lt, number
 from .base import BuildContext, Satellite, Source, catalogue_number, circular
 
 KEYS = {

@@ -13,9 +13,9 @@ from typing import Callable
 import simpy
 
 from .. import policies as policy_mod
-from ..config import Scenario
-from ..geometry import Geometry
-from ..measure import MeasurementStream
+from ..io.config import Scenario
+from ..orbits.geometry import Geometry
+from ..radio.measure import MeasurementStream
 from .common import Execution, Records, RunSettings
 from .fast import FastRun
 from .naive import NaiveRun
@@ -43,7 +43,7 @@ def run_scenario(scen: Scenario, *, kernel: str = "fast", geometry: Geometry | N
     period = float(scen.scenario["measurement_period_s"])
     tables = scen.policies if policy_tables is None else policy_tables
     if not tables:
-        from ..errors import InputError
+        from ..io.errors import InputError
         raise InputError(scen.source, "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
     env = simpy.Environment()

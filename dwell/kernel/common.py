@@ -30,9 +30,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..hardware import Hardware
-from ..measure import MeasurementStream
 from ..policies.base import Decision, Policy, Rows
+from ..radio.hardware import Hardware
+from ..radio.measure import MeasurementStream
 
 PRIORITY = {"decision": 0, "loss": 1, "rlf": 2, "end": 3}
 

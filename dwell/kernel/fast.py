@@ -14,8 +14,8 @@ import math
 import numpy as np
 import simpy
 
-from ..measure import row_at_or_after
 from ..policies.base import Decision, Link, Policy
+from ..radio.measure import row_at_or_after
 from .common import PRIORITY, Execution, KernelRun, first_rlf_s, monitoring
 
 FIRST_ROWS = 64

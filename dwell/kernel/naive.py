@@ -14,8 +14,8 @@ import math
 
 import simpy
 
-from ..measure import row_at_or_after
 from ..policies.base import Decision, Link, Policy, Rows
+from ..radio.measure import row_at_or_after
 from .common import PRIORITY, Execution, KernelRun
 
 

@@ -18,9 +18,9 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..errors import InputError
-from ..noise import stream_id
-from ..schema import REQUIRED, Field, between, gt, number, table
+from ..io.errors import InputError
+from ..io.schema import REQUIRED, Field, between, gt, number, table
+from ..radio.noise import stream_id
 from . import canyon as canyon_mod
 from . import los as los_mod
 from .horizon import HorizonMask
@@ -119,7 +119,7 @@ class LosSettings:
         return self.nlos_loss_db is None
 
     def __call__(self, site: Site, passes, pid, tt, grid_index, is_first, elevation_deg):
-        """LOS flags at the pass samples (see :func:`dwell.passes._obstructed`)."""
+        """LOS flags at the pass samples (see :func:`dwell.orbits.passes._obstructed`)."""
         if not self.blocks:
             return np.ones(tt.size, dtype=bool)  # non-LOS costs dB in the link, not visibility
         sat = passes.sat[pid]

@@ -55,8 +55,8 @@ from typing import Any, Sequence
 import numpy as np
 from scipy.special import cosdg, sindg
 
-from ..errors import InputError
-from ..schema import REQUIRED, Field, between, ge, gt, number, numbers, text
+from ..io.errors import InputError
+from ..io.schema import REQUIRED, Field, between, ge, gt, number, numbers, text
 
 LAWS = ("exponential", "deterministic", "lognormal", "pareto", "empirical")
 NOTHING_DEG = -90.0            # mask value where no building blocks

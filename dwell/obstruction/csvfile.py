@@ -6,7 +6,7 @@ import csv
 import math
 from pathlib import Path
 
-from ..errors import InputError
+from ..io.errors import InputError
 
 
 def _records(body: str, path: Path):

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
+from ..io.errors import InputError
 from .csvfile import read_numeric_csv
 
 

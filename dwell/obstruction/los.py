@@ -20,8 +20,8 @@ import numpy as np
 from scipy.signal import lfilter
 from scipy.special import ndtr
 
-from .. import noise
-from ..schema import REQUIRED, Field, ge, gt, number, text
+from ..io.schema import REQUIRED, Field, ge, gt, number, text
+from ..radio import noise
 
 # 3GPP TR 38.811, Table 6.6.1-1 (LOS probability for NTN), values from memory.
 ELEVATION_DEG = np.arange(10.0, 91.0, 10.0)

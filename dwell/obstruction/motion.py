@@ -11,9 +11,9 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
-from ..frames import MEAN_EARTH_RADIUS_KM, enu_basis, geodetic_to_ecef_km
-from ..timebase import Epoch, parse_utc
+from ..io.errors import InputError
+from ..orbits.frames import MEAN_EARTH_RADIUS_KM, enu_basis, geodetic_to_ecef_km
+from ..orbits.timebase import Epoch, parse_utc
 from .csvfile import read_numeric_csv
 
 

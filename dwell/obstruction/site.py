@@ -7,7 +7,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from ..frames import EarthOrientation, rotate_z, site_in_teme
+from ..orbits.frames import EarthOrientation, rotate_z, site_in_teme
 
 
 class Obstruction(Protocol):

@@ -12,8 +12,8 @@ import importlib.util
 from pathlib import Path
 from typing import Any, Callable
 
-from ..errors import InputError
-from ..schema import check_table
+from ..io.errors import InputError
+from ..io.schema import check_table
 from .base import COMMON_KEYS, Decision, Policy
 
 RULES: dict[str, type[Policy]] = {}

@@ -22,7 +22,7 @@ import math
 
 import numpy as np
 
-from ..schema import ge, number
+from ..io.schema import ge, number
 from . import register
 from .base import TTT_VALUES_MS, Decision, Link, Policy, Rows, held_runs, warn_if_not_in
 

@@ -31,7 +31,7 @@ from typing import Any, Callable, ClassVar
 
 import numpy as np
 
-from ..schema import Field, between, ge, integer, number, text
+from ..io.schema import Field, between, ge, integer, number, text
 
 # 3GPP TS 38.331 value sets (TimeToTrigger; RLF-TimersAndConstants), from the standard's ASN.1
 TTT_VALUES_MS = (0, 40, 64, 80, 100, 128, 160, 256, 320, 480, 512, 640, 1024, 1280, 2560, 5120)

@@ -22,8 +22,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import InputError
-from ..schema import ge, number, text
+from ..io.errors import InputError
+from ..io.schema import ge, number, text
 from . import register
 from .a3 import A3_KEYS, TimeToTriggerRule
 from .base import Decision, Link, Rows, held_runs

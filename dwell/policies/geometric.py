@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..schema import ge, number, text
+from ..io.schema import ge, number, text
 from . import register
 from .base import Decision, Link, Policy, Rows, better_than_serving
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..schema import ge, number
+from ..io.schema import ge, number
 from . import register
 from .geometric import _RowRule
 

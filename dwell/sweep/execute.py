@@ -30,7 +30,7 @@ from typing import Any, Callable
 
 import pandas as pd
 
-from ..atomic import atomic_dir, write_text
+from ..io.atomic import atomic_dir, write_text
 from .spec import Run, SweepPlan
 
 RUN_TABLES = ("links", "handovers", "outages", "dwell_ccdf", "summary")
@@ -56,10 +56,10 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
     ``runs`` are plain dicts (picklable for process pools and clusters).  Returns
     (run key, "done" | "failed", message) per run.
     """
-    from ..config import scenario_from_dict
+    from ..io.config import scenario_from_dict
+    from ..io.tables import write_frame
     from ..kernel import run_scenario
     from ..run import build_tables, run_toml
-    from ..tables import write_frame
 
     out = Path(out_dir)
     try:
@@ -141,7 +141,7 @@ def estimate_cost_s(plan: SweepPlan) -> float:
     """Rough CPU seconds, calibrated on the demo scenario on this class of machine: per day,
     0.25 s of propagation and ~0.9 s of pass finding and measurement per terminal (both per
     1,584 satellites), and ~0.2 s of kernel per terminal and policy at a 1 s period."""
-    from ..config import scenario_from_dict
+    from ..io.config import scenario_from_dict
     total = 0.0
     for runs in plan.tasks.values():
         scen = scenario_from_dict(copy.deepcopy(runs[0].scenario), plan.source, plan.base_dir,
@@ -217,7 +217,7 @@ def _run_dask(jobs, plan, out, columns, workers, scheduler, note) -> None:
     try:
         from dask.distributed import Client, LocalCluster, as_completed
     except ImportError:
-        from ..errors import InputError
+        from ..io.errors import InputError
         raise InputError("--executor", None, "dask", "needs the cluster extra: "
                          "pip install -e '.[cluster]'", show_value=True) from None
     cluster = None

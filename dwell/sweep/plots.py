@@ -8,14 +8,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from .. import plots
-from ..plots import plt
+from ..analysis import plots
+from ..analysis.plots import plt
 from .execute import combined_summary
 
 
 def _axes(out: Path, df: pd.DataFrame) -> list[str]:
     """Numeric parameter columns of the sweep (from the summary files' metadata)."""
-    from ..tables import read_metadata
+    from ..io.tables import read_metadata
     first = next(out.glob("summary-*.parquet"))
     params = json.loads(read_metadata(first).get("dwell.sweep_params", "{}"))
     cols = []

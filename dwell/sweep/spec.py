@@ -44,9 +44,9 @@ from typing import Any
 
 import numpy as np
 
-from ..config import read_toml, scenario_from_dict
-from ..errors import InputError
-from ..schema import REQUIRED, Field, check_table, text
+from ..io.config import read_toml, scenario_from_dict
+from ..io.errors import InputError
+from ..io.schema import REQUIRED, Field, check_table, text
 
 SWEEP_KEYS = {
     "base": text(REQUIRED, doc="base scenario file"),

@@ -14,7 +14,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .atomic import atomic_path  # noqa: E402
+from ..io.atomic import atomic_path  # noqa: E402
 
 
 def _save(fig, path: Path) -> None:

@@ -1,4 +1,4 @@
-"""Simulated against analytic: each closed form of :mod:`dwell.analytic` next to the run's own
+"""Simulated against analytic: each closed form of :mod:`dwell.analysis.analytic` next to the run's own
 value and its 95 % interval, only where the formula's assumptions hold for the run (otherwise
 the row says why not, instead of printing a misleading number).
 
@@ -16,10 +16,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..io.config import Scenario, load_scenario
+from ..orbits.frames import MEAN_EARTH_RADIUS_KM
 from . import analytic as an
-from .config import Scenario, load_scenario
-from .analysis.summary import hour_edges, per_hour, ratio_interval
-from .frames import MEAN_EARTH_RADIUS_KM
+from .summary import hour_edges, per_hour, ratio_interval
 
 SEED = 20270510  # fixed: the same run folder always gives the same intervals
 
@@ -204,7 +204,7 @@ def compare_run(run_dir: str | Path) -> pd.DataFrame:
 
 
 def _canyon_row(name: str, site, term: dict) -> dict:
-    from .obstruction import CanyonObstruction
+    from ..obstruction import CanyonObstruction
     can = next(ob for ob in site.obstructions if isinstance(ob, CanyonObstruction)).canyon
     p = term["canyon"]
     lo_m, hi_m = can.along_range_m

@@ -17,8 +17,7 @@ import numpy as np
 from scipy.integrate import quad
 from scipy.stats import chi2
 
-from .frames import MEAN_EARTH_RADIUS_KM, SPEED_OF_LIGHT_KM_S
-
+from ..orbits.frames import MEAN_EARTH_RADIUS_KM, SPEED_OF_LIGHT_KM_S
 
 # ---- geometry of one satellite shell -----------------------------------------------------------
 

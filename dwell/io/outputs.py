@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .geometry import Geometry, cause_name, coverage_steps
-from .passes import CAUSE_EDGE
+from ..orbits.geometry import Geometry, cause_name, coverage_steps
+from ..orbits.passes import CAUSE_EDGE
 
 
 def passes_frame(geo: Geometry) -> pd.DataFrame:

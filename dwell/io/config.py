@@ -6,7 +6,7 @@ Top-level tables (the key names are a contract: later versions add keys, never r
 - ``[[constellation]]``: one or more sources (see :mod:`dwell.constellations`);
 - ``[[terminal]]``: one or more ground terminals;
 - ``[[policy]]`` and ``[link]``: serving policies and the link budget (see :mod:`dwell.policies`,
-  :mod:`dwell.link`).
+  :mod:`dwell.radio.link`).
 
 :func:`load_scenario` checks everything a run will read (element files, masks, tracks) before any
 work starts, and raises :class:`~dwell.errors.InputError` naming the file, key and value.
@@ -22,11 +22,23 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
-from . import hardware, link, obstruction, policies
-from .constellations import SOURCES, BuildContext, Constellation
+from .. import obstruction, policies
+from ..constellations import SOURCES, BuildContext, Constellation
+from ..orbits.timebase import Epoch, parse_utc
+from ..radio import hardware, link
 from .errors import InputError
-from .schema import REQUIRED, Field, between, check_table, flag, ge, gt, le, number, text
-from .timebase import Epoch, parse_utc
+from .schema import (
+    REQUIRED,
+    Field,
+    between,
+    check_table,
+    flag,
+    ge,
+    gt,
+    le,
+    number,
+    text,
+)
 
 PATH_KEYS = ("path", "mask", "track")  # keys whose values are files relative to the config
 

@@ -28,9 +28,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..obstruction.site import Site
 from .frames import EarthOrientation
 from .look import elevation_deg
-from .obstruction.site import Site
 from .sky import SkyChunk
 
 GOLDEN = (math.sqrt(5.0) - 1.0) / 2.0

@@ -8,12 +8,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..io.config import load_scenario
+from ..orbits.frames import EarthOrientation
+from ..orbits.look import look
+from ..orbits.sky import Sky
 from . import plots
 from .compare import compare_run
-from .config import load_scenario
-from .frames import EarthOrientation
-from .look import look
-from .sky import Sky
 
 FIGURES = ("dwell_ccdf.png", "rates.png", "in_view.png", "timeline.png", "sky.png")
 

@@ -16,8 +16,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from .errors import InputError
-from .schema import between, ge, gt, integer, number, text
+from ..io.errors import InputError
+from ..io.schema import between, ge, gt, integer, number, text
 
 TERMINAL_KEYS = {
     "apertures": integer(1, ge(1), doc="independently pointed apertures (2+ allows make-before-break)"),

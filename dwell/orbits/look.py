@@ -1,7 +1,7 @@
 """Topocentric look angles: azimuth, elevation, slant range and range rate, vectorised.
 
 Inputs are TEME vectors broadcast over any leading shape (satellites x times x terminals); the
-terminal's east/north/up basis is expressed in TEME too (see :func:`dwell.frames.site_in_teme`),
+terminal's east/north/up basis is expressed in TEME too (see :func:`dwell.orbits.frames.site_in_teme`),
 so "up" is the WGS-84 geodetic normal.
 """
 

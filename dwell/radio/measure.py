@@ -4,7 +4,7 @@
 kernel and policy reads: for each instant ``t_k = k * period`` and each satellite window in view,
 geometry (Hermite-interpolated, never a propagator call), the link budget, optional correlated
 log-normal shadowing, measurement noise, and the layer-3 filter (TS 38.331 section 5.5.3.2, with
-the coefficient adapted to the simulated period as in :func:`dwell.link.l3_alpha`).
+the coefficient adapted to the simulated period as in :func:`dwell.radio.link.l3_alpha`).
 
 Blocks are built in time order (filter and shadowing states carry from one block to the next)
 and dropped once every reader has moved past them, so memory stays bounded for any duration.
@@ -17,14 +17,14 @@ import math
 
 import numpy as np
 
+from ..obstruction import los as los_mod
+from ..orbits.frames import MEAN_EARTH_RADIUS_KM
+from ..orbits.geometry import Geometry
+from ..orbits.look import look
+from ..orbits.passes import _ranges
+from ..policies.base import Rows
 from . import link as linkmod
 from . import noise
-from .frames import MEAN_EARTH_RADIUS_KM
-from .geometry import Geometry
-from .look import look
-from .obstruction import los as los_mod
-from .passes import _ranges
-from .policies.base import Rows
 
 _SHADOW = noise.stream_id("shadowing")
 _MEASURE = noise.stream_id("measurement")

@@ -4,7 +4,7 @@ Everything is a pure, vectorised numpy function of broadcast arrays, plus :class
 binds the checked ``[link]`` table (:data:`KEYS`, :func:`check_table`) and returns the whole
 deterministic budget for arrays of range, elevation and off-boresight angle.  Random parts
 (log-normal shadowing, measurement noise) are not applied here: callers draw counter-based
-innovations (:mod:`dwell.noise`) and shape them with :func:`ar1_segments`; RSRP smoothing uses the
+innovations (:mod:`dwell.radio.noise`) and shape them with :func:`ar1_segments`; RSRP smoothing uses the
 3GPP layer-3 filter, :func:`l3_filter_segments`.
 
 Cost: a few transcendental functions per sample for the budget (one Bessel J1 for the satellite
@@ -20,9 +20,9 @@ import numpy as np
 from scipy.signal import lfilter
 from scipy.special import j1
 
-from .errors import InputError
-from .schema import Field, between, ge, gt, le, number
-from .schema import check_table as _check_spec
+from ..io.errors import InputError
+from ..io.schema import Field, between, ge, gt, le, number
+from ..io.schema import check_table as _check_spec
 
 C_KM_S = 299792.458  # speed of light (exact, SI definition)
 KT0_DBM_HZ = -174.0  # thermal noise density kT0 at T0 = 290 K, the usual rounding of -173.98
@@ -243,7 +243,7 @@ def ar1_segments(innovations: np.ndarray, segment_start: np.ndarray, rho: float,
 
     Each segment starts stationary, ``x_0 = z_0``, or, for a first segment carried in from a
     previous block, ``x_0 = rho initial + sqrt(1 - rho^2) z_0``.  With standard normal
-    ``innovations`` (e.g. :func:`dwell.noise.normal`) every sample is N(0, 1) with lag-1
+    ``innovations`` (e.g. :func:`dwell.radio.noise.normal`) every sample is N(0, 1) with lag-1
     correlation ``rho``.  Same segment/carry conventions and return value as
     :func:`l3_filter_segments`.
     """

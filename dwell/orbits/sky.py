@@ -20,7 +20,7 @@ from typing import Callable
 import numpy as np
 from sgp4.api import SGP4_ERRORS, SatrecArray
 
-from .constellations import Constellation
+from ..constellations import Constellation
 from .timebase import Epoch
 
 # WGS-72 constants, as SGP4 itself uses (Vallado et al. 2006)

@@ -18,9 +18,9 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .config import Scenario
+from ..io.config import Scenario
+from ..obstruction.site import Site
 from .frames import EarthOrientation
-from .obstruction.site import Site
 from .passes import CAUSE_EDGE, CAUSE_NAMES, PassOptions, Windows, find_windows
 from .sky import Sky
 

@@ -10,7 +10,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from . import __version__
+from .. import __version__
 from .atomic import atomic_path
 
 CATEGORY_COLUMNS = ("terminal", "policy", "satellite", "shell", "from_satellite", "to_satellite",
