@@ -18,15 +18,17 @@ import pandas as pd
 import tomli_w
 
 from .analysis.records import SiteCoverage, handovers_frame, links_frame, outages_frame
-from .analysis.summary import dwell_ccdf, summarize
+from .analysis.summary import dwell_ccdf, sinr_ccdf_frame, summarize
 from .io.atomic import atomic_dir
 from .io.config import Scenario
 from .io.outputs import passes_frame, visible_frame
 from .io.tables import write_frame
 from .io.text import format_table
 from .kernel import RunResult, run_scenario
+from .radio.cells import cell_names
 
-TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf")
+TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf",
+          "sinr_ccdf")
 
 
 class InvariantError(AssertionError):
@@ -42,21 +44,32 @@ class RunTables:
 def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool = False
                  ) -> RunTables:
     names = scen.constellation.names
+    tables = [c["name"] for c in scen.constellations]
+
+    def cname(cells):
+        return cell_names(cells, names, tables)
+
     passes = passes_frame(geo)
     visible = visible_frame(geo)
+    uncovered = {res.site_index: res.uncovered for res in results}
     cov = {}
     for k in range(len(geo.sites)):
         cov[k] = SiteCoverage(geo.window_frame(k), geo.window_frame(k, floor_passes=True),
-                              geo.duration_s)
-    links, hos, outs, rows, ccdfs = [], [], [], [], []
+                              geo.duration_s, uncovered.get(k))
+    links, hos, outs, rows, ccdfs, sinrs = [], [], [], [], [], []
     for res in results:
-        lf = links_frame(res, names)
-        hf = handovers_frame(res, names, float(scen.link.get("frequency_ghz", 2.0)))
+        lf = links_frame(res, names, cname)
+        hf = handovers_frame(res, names, float(scen.link.get("frequency_ghz", 2.0)), cname)
         of, budget = outages_frame(res, cov[res.site_index])
         vis = visible[visible["terminal"] == res.terminal]
         row = {"terminal": res.terminal, "policy": res.policy}
         row.update(summarize(lf, hf, of, vis, budget, geo.duration_s,
-                             len(res.records.failures), res.records.preparing, scen.seed))
+                             len(res.records.failures), res.records.preparing, scen.seed,
+                             res.records.sinr))
+        sc = sinr_ccdf_frame(res.records.sinr)
+        sc.insert(0, "policy", res.policy)
+        sc.insert(0, "terminal", res.terminal)
+        sinrs.append(sc)
         if check:
             check_invariants(res, lf, hf, of, budget, row, cov[res.site_index], geo.duration_s)
         c = dwell_ccdf(lf)
@@ -75,6 +88,7 @@ def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool =
         "visible": visible,
         "summary": pd.DataFrame(rows),
         "dwell_ccdf": pd.concat(ccdfs, ignore_index=True),
+        "sinr_ccdf": pd.concat(sinrs, ignore_index=True),
     }
     return RunTables(frames, results)
 

@@ -68,7 +68,8 @@ def test_same_config_same_seed_gives_identical_bytes(two_runs):
     tables_a, tables_b = _contents(a, "*.parquet"), _contents(b, "*.parquet")
     # README lists seven tables per run
     assert set(tables_a) == {f"{t}.parquet" for t in ("passes", "links", "handovers", "outages",
-                                                      "visible", "summary", "dwell_ccdf")}
+                                                      "visible", "summary", "dwell_ccdf",
+                                                      "sinr_ccdf")}
     assert tables_a.keys() == tables_b.keys()
     for name in tables_a:
         assert tables_a[name] == tables_b[name], name

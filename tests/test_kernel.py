@@ -276,7 +276,7 @@ def test_until_lost_time_adds_up(n_sat):
     sat_of = {n: i for i, n in enumerate(scen.constellation.names)}
     ps = np.array([sat_of[s] for s in passes["satellite"]])
     in_view = 0.0
-    for sat, _, a, b, _, _ in res.records.links:
+    for sat, _, a, b, *_ in res.records.links:
         m = ps == sat
         lo = np.maximum(passes["rise_s"].to_numpy()[m], a)
         hi = np.minimum(passes["set_s"].to_numpy()[m], b)

@@ -323,7 +323,16 @@ def test_check_table_defaults():
     p = link.check_table({}, "demo.toml")
     assert set(p) == set(link.KEYS)
     assert p["l3_filter_k"] == 4  # TS 38.331 QuantityConfigNR default fc4
-    assert p["q_in_snr_db"] >= p["q_out_snr_db"]
+    assert p["q_in_sinr_db"] >= p["q_out_sinr_db"]
+
+
+def test_old_snr_key_names_still_read_with_a_warning():
+    # the keys were renamed when radio link monitoring moved to SINR; the old spelling stays
+    # accepted (contract) and says so
+    said = []
+    p = link.check_table({"q_out_snr_db": -9.0, "q_in_snr_db": -7.0}, "demo.toml", said.append)
+    assert p["q_out_sinr_db"] == -9.0 and p["q_in_sinr_db"] == -7.0
+    assert len(said) == 2 and all("q_out_sinr_db" in s or "q_in_sinr_db" in s for s in said)
 
 
 @pytest.mark.parametrize("raw, key", [
@@ -331,7 +340,9 @@ def test_check_table_defaults():
     ({"frequency_ghz": -1.0}, "link.frequency_ghz"),
     ({"subcarrier_spacing_khz": 45}, "link.subcarrier_spacing_khz"),
     ({"l3_filter_k": 10}, "link.l3_filter_k"),  # not in TS 38.331 FilterCoefficient
-    ({"q_in_snr_db": -10.0, "q_out_snr_db": -8.0}, "link.q_in_snr_db"),
+    ({"q_in_sinr_db": -10.0, "q_out_sinr_db": -8.0}, "link.q_in_sinr_db"),
+    ({"q_in_snr_db": -10.0, "q_out_snr_db": -8.0}, "link.q_in_sinr_db"),
+    ({"preset": "no-such-preset"}, "link.preset"),
     ({"bandwidth_mhz": 1.0, "subcarrier_spacing_khz": 240}, "link.bandwidth_mhz"),
 ])
 def test_check_table_rejects(raw, key):

@@ -7,7 +7,10 @@ and each outage instant gets one cause:
 - ``no-satellite``: nothing above the terminal's elevation floor;
 - ``obstruction``: satellites above the floor but none clear of obstructions, or the serving
   satellite above the floor and blocked;
-- ``weak-signal``: the serving satellite in view but below the out-of-sync SNR;
+- ``no-cell``: satellites in view, but no beam of theirs covers the terminal (no cell is
+  measured; multi-beam layouts that do not fill the sky);
+- ``weak-signal``: the serving satellite in view but its cell below the out-of-sync SINR, or
+  not measured while other cells are;
 - ``failure``: satellites in view but the terminal has no usable link (lost serving satellite
   not yet replaced, radio link failure, re-establishment).
 """
@@ -18,20 +21,24 @@ import numpy as np
 import pandas as pd
 
 from ..kernel import RunResult
-from ..kernel.common import HANDOVER_FIELDS
+from ..kernel.common import HANDOVER_FIELDS, LINK_FIELDS
 from ..radio.link import doppler_hz, one_way_delay_ms
 from . import intervals as iv
 
-CAUSES = ("no-satellite", "obstruction", "weak-signal", "failure", "switching")
+CAUSES = ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure", "switching")
 
 
-def links_frame(res: RunResult, names: list[str]) -> pd.DataFrame:
+def links_frame(res: RunResult, names: list[str], cell_names=None) -> pd.DataFrame:
+    """One row per serving interval.  ``cell_names`` maps cell ids to readable names (see
+    :func:`dwell.radio.cells.cell_names`)."""
     links = res.records.links
-    cols = ["sat", "aperture", "start_s", "end_s", "start_reason", "end_reason"]
-    df = pd.DataFrame(links, columns=cols)
+    df = pd.DataFrame(links, columns=list(LINK_FIELDS))
+    cells = df["cell"].to_numpy(dtype=np.int64)
     out = pd.DataFrame({
         "terminal": res.terminal, "policy": res.policy,
         "satellite": np.asarray(names, dtype=object)[df["sat"].to_numpy(dtype=int)] if len(df) else [],
+        "cell": cell_names(cells) if cell_names is not None else cells.astype(str),
+        "beam": df["beam"].to_numpy(dtype=np.int32),
         "aperture": df["aperture"].to_numpy(dtype=np.int32),
         "start_utc": df["start_s"].to_numpy(dtype=float), "end_utc": df["end_s"].to_numpy(dtype=float),
         "dwell_s": (df["end_s"] - df["start_s"]).to_numpy(dtype=float),
@@ -42,20 +49,28 @@ def links_frame(res: RunResult, names: list[str]) -> pd.DataFrame:
     return out
 
 
-def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0) -> pd.DataFrame:
+def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0,
+                    cell_names=None) -> pd.DataFrame:
     df = pd.DataFrame(res.records.handovers, columns=HANDOVER_FIELDS)
+    name = cell_names or (lambda c: np.asarray(c).astype(str))
     names_arr = np.asarray(names, dtype=object)
     frm = df["from_sat"].to_numpy(dtype=np.int64)
     to = df["to_sat"].to_numpy(dtype=np.int64)
     t = df["time_s"].to_numpy(dtype=float)
-    # ping-pong: this handover returns to the satellite the previous one left, within the window
+    # ping-pong: this handover returns to the cell the previous one left, within the window
+    fc = df["from_cell"].to_numpy(dtype=np.int64)
+    tc = df["to_cell"].to_numpy(dtype=np.int64)
     pp = np.zeros(len(df), dtype=bool)
     if len(df) > 1:
-        pp[1:] = (to[1:] == frm[:-1]) & (t[1:] - t[:-1] <= res.settings.ping_pong_window_s)
+        pp[1:] = (tc[1:] == fc[:-1]) & (t[1:] - t[:-1] <= res.settings.ping_pong_window_s)
     return pd.DataFrame({
         "terminal": res.terminal, "policy": res.policy, "time_utc": t,
         "from_satellite": names_arr[frm] if len(df) else [],
         "to_satellite": names_arr[to] if len(df) else [],
+        "from_cell": name(fc) if len(df) else [], "to_cell": name(tc) if len(df) else [],
+        "from_beam": df["from_beam"].to_numpy(dtype=np.int32),
+        "to_beam": df["to_beam"].to_numpy(dtype=np.int32),
+        "scope": df["scope"].to_numpy(dtype=object),
         "trigger": df["trigger"].to_numpy(dtype=object),
         "from_elevation_deg": df["from_elevation_deg"].to_numpy(dtype=float),
         "to_elevation_deg": df["to_elevation_deg"].to_numpy(dtype=float),
@@ -78,8 +93,12 @@ def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0
 class SiteCoverage:
     """Visibility facts of one terminal that every policy's outage accounting needs."""
 
-    def __init__(self, windows: pd.DataFrame, passes: pd.DataFrame, duration_s: float):
+    def __init__(self, windows: pd.DataFrame, passes: pd.DataFrame, duration_s: float,
+                 uncovered: list[tuple[float, float]] | None = None):
         self.duration_s = duration_s
+        un = uncovered or []
+        self.uncovered = iv.union(np.array([u[0] for u in un], dtype=float),
+                                  np.array([u[1] for u in un], dtype=float))
         self.win_sat = windows["sat"].to_numpy(dtype=np.int64)
         self.win_start = windows["start_s"].to_numpy(dtype=float)
         self.win_end = windows["end_s"].to_numpy(dtype=float)
@@ -128,7 +147,8 @@ def outages_frame(res: RunResult, cov: SiteCoverage) -> tuple[pd.DataFrame, dict
     cuts = np.concatenate([oa, ob, cov.any_visible[0], cov.any_visible[1], cov.any_floor[0],
                            cov.any_floor[1], la, lb, cov.pass_start[on_link], cov.pass_end[on_link],
                            np.array([w[0] for w in res.records.weak] +
-                                    [w[1] for w in res.records.weak], dtype=float)])
+                                    [w[1] for w in res.records.weak], dtype=float),
+                           cov.uncovered[0], cov.uncovered[1]])
     if oa.size:
         # cut points strictly inside an outage interval split it; every piece keeps one cause
         k = np.searchsorted(oa, cuts, side="right") - 1
@@ -150,6 +170,7 @@ def outages_frame(res: RunResult, cov: SiteCoverage) -> tuple[pd.DataFrame, dict
         in_win = cov.in_window(serving[il], mid[il])
         in_pass = cov.in_pass(serving[il], mid[il])
         cause[il[in_win]] = "weak-signal"
+        cause[vis & (iv.count_at(*cov.uncovered, mid) > 0)] = "no-cell"
         cause[il[~in_win & in_pass]] = "obstruction"
         cause[~vis & floor] = "obstruction"
         cause[~vis & ~floor] = "no-satellite"

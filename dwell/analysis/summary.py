@@ -56,19 +56,36 @@ def per_hour(a: np.ndarray, b: np.ndarray, edges: np.ndarray,
     return out
 
 
+def _worst_hour(t: np.ndarray, edges: np.ndarray) -> int:
+    """Most events in one clock hour (full hours only, when the run has any)."""
+    per = np.histogram(t, bins=edges)[0] if t.size else np.zeros(edges.size - 1, dtype=int)
+    full = np.diff(edges) >= 3600.0 - 1e-6
+    return int(per[full].max()) if full.any() else int(per.max(initial=0))
+
+
 def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFrame,
               visible: pd.DataFrame, budget: dict[str, float], duration_s: float,
-              failures: int, preparing: list[tuple], seed: int) -> dict:
-    """One summary row for one run (see the module docstring for the intervals)."""
+              failures: int, preparing: list[tuple], seed: int, sinr=None) -> dict:
+    """One summary row for one run (see the module docstring for the intervals).
+
+    Handovers count every change of serving cell; ``satellite_changes`` only those to another
+    satellite (the antenna re-points) and ``beam_changes`` those within one satellite.  Slew,
+    re-pointing and the make-before-break aperture count concern satellite changes only.
+    ``sinr`` is the run's serving-SINR histogram (:class:`dwell.kernel.common.SinrHistogram`).
+    """
     hours = duration_s / 3600.0
     n_ho = int(len(handovers))
     ho_lo, ho_hi = poisson_rate_interval(n_ho, hours)
     edges = hour_edges(duration_s)
     hour_len = np.diff(edges)
     t_ho = handovers["time_utc"].to_numpy(dtype=float)
-    ho_per_hour = np.histogram(t_ho, bins=edges)[0] if n_ho else np.zeros(edges.size - 1)
-    full = hour_len >= 3600.0 - 1e-6
-    worst = int(ho_per_hour[full].max()) if full.any() else int(ho_per_hour.max(initial=0))
+    worst = _worst_hour(t_ho, edges)
+    scope = handovers["scope"].astype(str).to_numpy() if "scope" in handovers.columns and n_ho \
+        else np.full(n_ho, "inter-satellite")
+    inter = scope == "inter-satellite"
+    n_sat, n_beam = int(inter.sum()), int((~inter).sum())
+    sat_lo, sat_hi = poisson_rate_interval(n_sat, hours)
+    beam_lo, beam_hi = poisson_rate_interval(n_beam, hours)
 
     complete = links[(links["start_reason"] != "initial") & (links["end_reason"] != "end")]
     dw = (complete if len(complete) else links)["dwell_s"].to_numpy(dtype=float)
@@ -90,10 +107,11 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
     o_lo, o_hi = ratio_interval(per_hour_out, hour_len, seed + 1)
     n_pp = int(handovers["ping_pong"].sum()) if n_ho else 0
     pp_lo, pp_hi = poisson_rate_interval(n_pp, hours)
-    slew = handovers["slew_angle_deg"].to_numpy(dtype=float)
+    slew = handovers["slew_angle_deg"].to_numpy(dtype=float)[inter]
     prep_s = float(sum(b - a for a, b in preparing))
-    rep = handovers["repoint_s"].to_numpy(dtype=float)
-    need = 1 + iv.max_overlap(t_ho, t_ho + rep) if n_ho else 1
+    rep = handovers["repoint_s"].to_numpy(dtype=float)[inter]
+    t_sat = t_ho[inter]
+    need = 1 + iv.max_overlap(t_sat, t_sat + rep) if n_sat else 1
     vis_dur = visible["duration_s"].to_numpy(dtype=float)
     vis_n = visible["in_view"].to_numpy(dtype=float)
     row = {
@@ -102,6 +120,13 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         "handovers_per_hour": n_ho / hours,
         "handovers_per_hour_lo": ho_lo, "handovers_per_hour_hi": ho_hi,
         "worst_hour_handovers": worst,
+        "satellite_changes": n_sat,
+        "satellite_changes_per_hour": n_sat / hours,
+        "satellite_changes_per_hour_lo": sat_lo, "satellite_changes_per_hour_hi": sat_hi,
+        "worst_hour_satellite_changes": _worst_hour(t_sat, edges),
+        "beam_changes": n_beam,
+        "beam_changes_per_hour": n_beam / hours,
+        "beam_changes_per_hour_lo": beam_lo, "beam_changes_per_hour_hi": beam_hi,
         "links": int(len(links)),
         "dwell_mean_s": float(dw.mean()) if dw.size else math.nan,
         "dwell_mean_lo_s": dw_lo, "dwell_mean_hi_s": dw_hi,
@@ -128,12 +153,58 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         "mbb_apertures_needed": int(need),
         "mean_in_view": float(np.sum(vis_dur * vis_n) / duration_s),
         "none_in_view_fraction": float(np.sum(vis_dur[vis_n == 0]) / duration_s),
+        **sinr_stats(sinr),
     }
-    for cause in ("no-satellite", "obstruction", "weak-signal", "failure"):
+    for cause in ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure"):
         sel = real["cause"] == cause
         row[f"outage_{cause.replace('-', '_')}_fraction"] = float(
             (real.loc[sel, "end_utc"] - real.loc[sel, "start_utc"]).sum() / duration_s)
     return row
+
+
+def sinr_stats(hist) -> dict[str, float]:
+    """Mean (of dB values) and 5th percentile of the serving SINR over the instants served
+    with the serving cell measured (the percentile read off 0.1 dB bins, linear inside a bin)."""
+    if hist is None or hist.n == 0:
+        return {"serving_sinr_mean_db": math.nan, "serving_sinr_p5_db": math.nan}
+    counts = hist.counts.sum(axis=0).astype(float)
+    cum = np.cumsum(counts)
+    target = 0.05 * cum[-1]
+    b = int(np.searchsorted(cum, target, side="left"))
+    lo = hist.LO_DB + hist.STEP_DB * (b - 1)          # bin b covers [lo, lo + step)
+    before = cum[b - 1] if b > 0 else 0.0
+    frac = (target - before) / counts[b] if counts[b] > 0 else 0.0
+    p5 = lo + frac * hist.STEP_DB if 0 < b < counts.size - 1 else (hist.LO_DB if b == 0
+                                                                   else hist.HI_DB)
+    return {"serving_sinr_mean_db": hist.sum_db / hist.n, "serving_sinr_p5_db": float(p5)}
+
+
+SINR_GRID_DB = np.round(np.arange(-30.0, 50.0 + 1e-9, 0.5), 6)
+
+
+def sinr_ccdf_frame(hist) -> pd.DataFrame:
+    """Per clock hour: the fraction of served instants whose serving SINR exceeds each value of
+    a -30..50 dB grid (0.5 dB steps), with the number of instants (read off 0.1 dB bins: a
+    value counts as above T when its bin starts at or above T)."""
+    cols = {"hour": [], "sinr_db": [], "ccdf": [], "rows": []}
+    if hist is None:
+        return pd.DataFrame(cols)
+    j = np.rint((SINR_GRID_DB - hist.LO_DB) / hist.STEP_DB).astype(np.int64)
+    for h in range(hist.n_hours):
+        c = hist.counts[h]
+        n = int(c.sum())
+        if n == 0:
+            continue
+        above = np.cumsum(c[::-1])[::-1]            # above[b] = count in bins b..end
+        frac = above[np.minimum(j + 1, c.size - 1)] / n
+        cols["hour"].append(np.full(j.size, h, dtype=np.int32))
+        cols["sinr_db"].append(SINR_GRID_DB)
+        cols["ccdf"].append(frac)
+        cols["rows"].append(np.full(j.size, n, dtype=np.int64))
+    if not cols["hour"]:
+        return pd.DataFrame({"hour": np.zeros(0, np.int32), "sinr_db": np.zeros(0),
+                             "ccdf": np.zeros(0), "rows": np.zeros(0, np.int64)})
+    return pd.DataFrame({k: np.concatenate(v) for k, v in cols.items()})
 
 
 def _steps(df: pd.DataFrame, a: str, b: str) -> np.ndarray:

@@ -26,6 +26,7 @@ class Satellite:
     altitude_km: float        # mean altitude above the equatorial radius
     eccentricity: float = 0.0
     mean_motion_rad_s: float = 0.0
+    table: int = 0            # which [[constellation]] table it came from (its beam layout)
 
 
 @dataclass

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import copy
 import hashlib
+import math
 import json
 import tomllib
 from dataclasses import dataclass, field
@@ -25,7 +26,7 @@ from typing import Any, Callable
 from .. import obstruction, policies
 from ..constellations import SOURCES, BuildContext, Constellation
 from ..orbits.timebase import Epoch, parse_utc
-from ..radio import hardware, link
+from ..radio import beams, hardware, link
 from .errors import InputError
 from .schema import (
     REQUIRED,
@@ -78,6 +79,7 @@ TERMINAL_KEYS: dict[str, Field] = {
 CONSTELLATION_COMMON = {
     "kind": text(REQUIRED, choices=tuple(SOURCES), doc="source kind"),
     "name": Field((str,), None, (), "label; satellites are named after it"),
+    "beams": Field((dict,), None, (), "beam layout of these satellites (see dwell.radio.beams)"),
 }
 
 TOP_LEVEL = ("scenario", "constellation", "terminal", "policy", "link")
@@ -95,6 +97,7 @@ class Scenario:
     policies: list[dict[str, Any]]
     link: dict[str, Any]
     constellation: Constellation = field(default_factory=Constellation)
+    layouts: list[Any] = field(default_factory=list)   # dwell.radio.beams.BeamLayout per table
     epoch: Epoch | None = None
     sites: list[Any] = field(default_factory=list)   # dwell.obstruction.Site per terminal
 
@@ -114,6 +117,24 @@ class Scenario:
 
     def terminal_names(self) -> list[str]:
         return [t["name"] for t in self.terminals]
+
+
+def _resolve_cell_origins(consts: list[dict], terms: list[dict]) -> None:
+    """Earth-fixed cell lattices default to the terminals' mean position (the centroid of
+    their unit vectors), written into the table so the resolved config states it."""
+    import numpy as np
+
+    lat = np.radians([t["lat_deg"] for t in terms])
+    lon = np.radians([t["lon_deg"] for t in terms])
+    vec = np.stack([np.cos(lat) * np.cos(lon), np.cos(lat) * np.sin(lon), np.sin(lat)]).sum(axis=1)
+    norm = float(np.linalg.norm(vec))
+    lat0 = math.degrees(math.asin(vec[2] / norm)) if norm > 1e-9 else 0.0
+    lon0 = math.degrees(math.atan2(vec[1], vec[0])) if norm > 1e-9 else 0.0
+    for c in consts:
+        b = c["beams"]
+        if b["cell_mode"] == "earth-fixed" and b["cell_origin_lat_deg"] is None:
+            b["cell_origin_lat_deg"] = round(lat0, 9)
+            b["cell_origin_lon_deg"] = round(lon0, 9)
 
 
 def _drop_none(obj: Any) -> Any:
@@ -208,6 +229,7 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         raise InputError(source, "scenario.measurement_period_s", scen["measurement_period_s"],
                          "must not exceed duration_s")
 
+    link_params = link.check_table(raw.get("link", {}), source, warn)
     consts = []
     for i, table in enumerate(_array_of_tables(raw, "constellation", source, True)):
         where = f"constellation[{i + 1}]"
@@ -217,6 +239,7 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
                         source, where)
         spec = {**CONSTELLATION_COMMON, **SOURCES[kind].keys}
         params = check_table(table, spec, source, where)
+        params["beams"] = beams.check_table(params["beams"], link_params, source, where)
         if params["name"] is None:
             params["name"] = f"{kind.replace('-', '')}{i + 1}"
         _absolute(params, base_dir, source, where)
@@ -235,15 +258,22 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         _absolute(params, base_dir, source, where)
         terms.append(params)
 
-    link_params = link.check_table(raw.get("link", {}), source)
+    if link_params["interference"] is None:   # resolved, so run.toml says which
+        link_params["interference"] = any(c["beams"]["layout"] != "single" for c in consts)
+    _resolve_cell_origins(consts, terms)
     pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source, warn,
                                  base_dir)
     for i, params in enumerate(pols):
         _absolute(params, base_dir, source, f"policy[{i + 1}]")
 
     out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
+    out.layouts = [beams.BeamLayout.from_params(c["beams"]) for c in consts]
     if build:
         out.constellation = build_constellation(out, warn)
+        for i, c in enumerate(consts):
+            alts = [s.altitude_km for s in out.constellation.satellites if s.table == i]
+            beams.check_against_orbit(c["beams"], min(alts) if alts else math.nan, source,
+                                      f"constellation[{i + 1}]")
         out.sites = [obstruction.build_site(t, out, i, warn) for i, t in enumerate(terms)]
     return out
 
@@ -255,7 +285,10 @@ def build_constellation(scen: Scenario, warn: Callable[[str], None]) -> Constell
         ctx = BuildContext(scen.source, f"constellation[{i + 1}]", scen.base_dir,
                            scen.epoch.sgp4_epoch_days(), len(sats), warn=warn, seed=scen.seed,
                            index=i)
-        sats.extend(SOURCES[params["kind"]].build(params, ctx))
+        built = SOURCES[params["kind"]].build(params, ctx)
+        for s in built:
+            s.table = i
+        sats.extend(built)
     seen: dict[str, int] = {}
     for s in sats:  # names must be unique across tables too
         seen[s.name] = seen.get(s.name, 0) + 1

@@ -7,7 +7,7 @@ its slowest reader still needs.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Callable
 
 import simpy
@@ -30,6 +30,7 @@ class RunResult:
     policy: str
     records: Records
     settings: RunSettings
+    uncovered: list = field(default_factory=list)   # the terminal's instants with no cell
 
 
 def run_scenario(scen: Scenario, *, kernel: str = "fast", geometry: Geometry | None = None,
@@ -61,7 +62,8 @@ def run_scenario(scen: Scenario, *, kernel: str = "fast", geometry: Geometry | N
             settings = RunSettings.of(term, policy, stream.lp, geo.duration_s, period)
             ex = Execution(settings, stream)
             cls(env, policy, ex)
-            results.append(RunResult(term["name"], k, policy.name, ex.rec, settings))
+            results.append(RunResult(term["name"], k, policy.name, ex.rec, settings,
+                                     stream.uncovered))
     if progress is None:
         env.run()
     else:

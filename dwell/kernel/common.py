@@ -6,17 +6,20 @@ Execution model of one terminal under one policy (both kernels implement exactly
 - Down (at the start, after a radio link failure): at the first measurement instant with a
   satellite in view the policy selects one; the link starts then (initial access) or after
   ``reestablishment_s`` (after a failure).
-- Up on satellite s: radio link monitoring takes one indication per measurement instant:
-  out-of-sync when s is not in view or its SNR is below ``q_out_snr_db``, in-sync when in view
-  at or above ``q_in_snr_db`` (neither in between).  N310 consecutive out-of-sync start T310;
+- Up on cell c of satellite s: radio link monitoring takes one indication per measurement
+  instant: out-of-sync when c is not measured or its SINR is below ``q_out_sinr_db``, in-sync
+  when measured at or above ``q_in_sinr_db`` (neither in between).  N310 consecutive out-of-sync start T310;
   N311 consecutive in-sync before it expires stop it; expiry is a radio link failure (TS 38.331
   section 5.3.10).  The minimum-dwell guard releases ``min_dwell_s`` after the link starts, or
   at the first out-of-sync instant if earlier.
 - Next event of a link: the earliest of the policy's decision, the loss of s for ephemeris-aware
   policies (the end of each of s's windows, if a satellite is in view then), a radio link
   failure, and the end of the scenario; at equal times in that order.
-- Handover at t to satellite n: break-before-make (one aperture): the link to s ends at t, the
-  terminal is switching for ``interruption_s`` + re-pointing time, then the link to n starts.
+- Handover at t to cell c' of satellite n.  Within one satellite (n = s, a beam or cell
+  change): no re-pointing; the link to c ends at t and the new one starts after a break of
+  ``interruption_s`` (``mbb_interruption_s`` with two or more apertures).  To another
+  satellite, break-before-make (one aperture): the link to s ends at t, the terminal is
+  switching for ``interruption_s`` + re-pointing time, then the link to n starts.
   Make-before-break (two or more apertures): a free aperture re-points while s still serves;
   the link to s ends at t + re-pointing, a break of ``mbb_interruption_s`` follows.
   Re-pointing: mechanical apertures slew the angle between the old and new directions at
@@ -30,7 +33,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..policies.base import Decision, Policy, Rows
+from ..policies.base import Decision, Policy, Rows, strongest_of_satellite
+from ..radio.cells import BEAM_STRIDE, is_ground
 from ..radio.hardware import Hardware
 from ..radio.measure import MeasurementStream
 
@@ -60,7 +64,7 @@ class RunSettings:
         return cls(terminal["name"], policy.name, float(duration_s), float(period_s),
                    Hardware.from_terminal(terminal), int(p["n310"]), int(p["n311"]),
                    float(p["t310_s"]), float(p["reestablishment_s"]), float(p["min_dwell_s"]),
-                   float(link_params["q_out_snr_db"]), float(link_params["q_in_snr_db"]),
+                   float(link_params["q_out_sinr_db"]), float(link_params["q_in_sinr_db"]),
                    float(p["ping_pong_window_s"]))
 
 
@@ -68,24 +72,59 @@ class RunSettings:
 class Records:
     """Everything a run produced, in time order."""
 
-    links: list[tuple] = field(default_factory=list)       # sat, aperture, start, end, start_reason, end_reason
+    links: list[tuple] = field(default_factory=list)       # see LINK_FIELDS
     handovers: list[tuple] = field(default_factory=list)   # see HANDOVER_FIELDS
     switching: list[tuple] = field(default_factory=list)   # start, end
     preparing: list[tuple] = field(default_factory=list)   # make-before-break re-pointing: start, end
     weak: list[tuple] = field(default_factory=list)        # serving in view but below q_out: start, end
     failures: list[float] = field(default_factory=list)    # radio link failure instants
     events: int = 0                                        # kernel wake-ups
+    sinr: "SinrHistogram | None" = None                    # serving SINR per clock hour
 
     def signature(self) -> list[tuple]:
-        """What two kernels must agree on: every handover (time, from, to, trigger) and link."""
-        return ([("ho", round(h[0], 9), h[1], h[2], h[3]) for h in self.handovers] +
-                [("link", k[0], round(k[2], 9), round(k[3], 9), k[4], k[5]) for k in self.links])
+        """What two kernels must agree on: every handover (time, from, to, trigger, cells) and
+        link."""
+        return ([("ho", round(h[0], 9), h[1], h[2], h[3], h[16], h[17]) for h in self.handovers] +
+                [("link", k[0], round(k[2], 9), round(k[3], 9), k[4], k[5], k[6])
+                 for k in self.links])
 
 
+LINK_FIELDS = ("sat", "aperture", "start_s", "end_s", "start_reason", "end_reason", "cell",
+               "beam")
 HANDOVER_FIELDS = ("time_s", "from_sat", "to_sat", "trigger", "from_elevation_deg",
                    "to_elevation_deg", "from_rsrp_dbm", "to_rsrp_dbm", "slew_angle_deg",
                    "aperture", "interruption_s", "repoint_s", "from_range_km", "to_range_km",
-                   "from_range_rate_km_s", "to_range_rate_km_s")
+                   "from_range_rate_km_s", "to_range_rate_km_s", "from_cell", "to_cell",
+                   "from_beam", "to_beam", "scope")
+
+
+class SinrHistogram:
+    """Serving SINR at the measurement instants a terminal is served, per clock hour, in
+    0.1 dB bins from -50 to +80 dB (values outside go to the end bins); plus the exact sum and
+    count for the mean."""
+
+    LO_DB, HI_DB, STEP_DB = -50.0, 80.0, 0.1
+
+    def __init__(self, duration_s: float):
+        self.n_hours = max(1, math.ceil(duration_s / 3600.0 - 1e-9))
+        self.n_bins = int(round((self.HI_DB - self.LO_DB) / self.STEP_DB)) + 2
+        self.counts = np.zeros((self.n_hours, self.n_bins), dtype=np.int64)
+        self.sum_db = 0.0
+        self.n = 0
+
+    def add(self, t_s: np.ndarray, sinr_db: np.ndarray) -> None:
+        if t_s.size == 0:
+            return
+        h = np.minimum((t_s // 3600.0).astype(np.int64), self.n_hours - 1)
+        b = np.clip(np.floor((sinr_db - self.LO_DB) / self.STEP_DB).astype(np.int64) + 1, 0,
+                    self.n_bins - 1)
+        np.add.at(self.counts, (h, b), 1)
+        self.sum_db += float(np.sum(sinr_db))
+        self.n += int(sinr_db.size)
+
+    def edges_db(self) -> np.ndarray:
+        """Lower edge of each bin (the first bin holds everything below LO_DB)."""
+        return np.concatenate([[-np.inf], self.LO_DB + self.STEP_DB * np.arange(self.n_bins - 1)])
 
 
 def first_rlf_s(oos: np.ndarray, ins: np.ndarray, t_s: np.ndarray, n310: int, n311: int,
@@ -120,15 +159,16 @@ def _consecutive(x: np.ndarray) -> np.ndarray:
     return np.where(x, idx - last_false, 0)
 
 
-def monitoring(rows: Rows, sat: int, q_out: float, q_in: float
+def monitoring(rows: Rows, cell: int, in_view_until_s: float, q_out: float, q_in: float
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Per row: serving column, out-of-sync and in-sync indications, and weak (in view but
-    below q_out)."""
-    col = rows.column_of(sat)
-    vis = col >= 0
-    snr = np.where(vis, rows.snr_db[np.arange(rows.n), np.maximum(col, 0)], -np.inf)
-    weak = vis & (snr < q_out)
-    return col, ~vis | weak, vis & (snr >= q_in), weak
+    """Per row: serving column, out-of-sync and in-sync indications, and weak (the serving
+    satellite in view, ``t < in_view_until_s``, but its cell unmeasured or below q_out)."""
+    col = rows.column_of_cell(cell)
+    measured = col >= 0
+    sinr = np.where(measured, rows.sinr_db[np.arange(rows.n), np.maximum(col, 0)], -np.inf)
+    low = measured & (sinr < q_out)
+    weak = low | (~measured & (rows.t_s < in_view_until_s))
+    return col, ~measured | low, measured & (sinr >= q_in), weak
 
 
 def _value(arr: np.ndarray | None, r: int, c: int) -> float:
@@ -177,52 +217,92 @@ class Execution:
     def __init__(self, settings: RunSettings, stream: MeasurementStream):
         self.s = settings
         self.stream = stream
-        self.rec = Records()
+        self.rec = Records(sinr=SinrHistogram(settings.duration_s))
         self.aperture = 0
         self.link_sat = -1
+        self.link_cell = -1
+        self.link_beam = -1
         self.link_start = 0.0
         self.link_reason = ""
+        self.next_cell = (-1, -1, -1)         # (satellite, cell, beam) a handover goes to
 
-    def open_link(self, sat: int, t_s: float, reason: str) -> None:
+    def open_link(self, sat: int, t_s: float, reason: str, cell: int = -1, beam: int = 0) -> None:
         self.link_sat, self.link_start, self.link_reason = sat, t_s, reason
+        self.link_cell = cell if cell >= 0 else sat * BEAM_STRIDE
+        self.link_beam = beam if cell >= 0 else 0
+
+    def open_cell(self, rows: Rows, r: int, col: int, t_s: float, reason: str) -> None:
+        """Open a link on the cell in column ``col`` of row r."""
+        self.open_link(int(rows.sat[r, col]), t_s, reason, int(rows.cell[r, col]),
+                       int(rows.beam[r, col]))
 
     def close_link(self, t_s: float, reason: str) -> None:
         if self.link_sat >= 0:
             end = min(t_s, self.s.duration_s)
             self.rec.links.append((self.link_sat, self.aperture, self.link_start, end,
-                                   self.link_reason, reason))
+                                   self.link_reason, reason, self.link_cell, self.link_beam))
         self.link_sat = -1
 
     def plan_handover(self, rows: Rows, d: Decision, trigger: str) -> tuple[float, float, float]:
-        """Record handover ``d`` and return (time the old link ends, break, new link start)."""
+        """Record handover ``d`` and return (time the old link ends, break, new link start).
+
+        The target cell is ``d.cell`` (or the target satellite's strongest cell at the
+        decision's row).  A change within the serving satellite re-points nothing."""
         hw = self.s.hardware
         r = rows.row_at(d.time_s, self.s.period_s)
         row = rows.sat[r].tolist()
         cf = row.index(self.link_sat) if self.link_sat in row else -1
         ct = row.index(d.target) if d.target in row else -1
-        az, el = rows.azimuth_deg, rows.elevation_deg
-        old = (float(az[r, cf]), float(el[r, cf])) if cf >= 0 else pointing(rows, r, self.link_sat)
-        new = (float(az[r, ct]), float(el[r, ct])) if ct >= 0 else pointing(rows, r, d.target)
-        slew = angle_between_deg(old, new)
-        repoint = float(hw.repoint_s(slew))
-        if hw.make_before_break:
-            ap = (self.aperture + 1) % hw.apertures
-            old_end, brk = d.time_s + repoint, hw.mbb_interruption_s
-            self.rec.preparing.append((d.time_s, min(old_end, self.s.duration_s)))
+        cells = rows.cell[r].tolist()
+        to_cell = d.cell
+        if to_cell < 0:
+            best = strongest_of_satellite(rows.take(r, r + 1), d.target)[0]
+            to_cell = int(rows.cell[r, best]) if best >= 0 else d.target * BEAM_STRIDE
+        pf = cells.index(self.link_cell) if self.link_cell in cells else -1
+        pt = cells.index(to_cell) if to_cell in cells else -1
+        if pt >= 0:
+            to_beam = int(rows.beam[r, pt])
         else:
+            to_beam = -1 if is_ground(to_cell) else int(to_cell % BEAM_STRIDE)
+        intra = d.target == self.link_sat
+        az, el = rows.azimuth_deg, rows.elevation_deg
+        if intra:
+            slew, repoint = 0.0, 0.0
             ap = self.aperture
-            old_end, brk = d.time_s, hw.interruption_s + repoint
+            old_end = d.time_s
+            brk = hw.mbb_interruption_s if hw.make_before_break else hw.interruption_s
+        else:
+            old = (float(az[r, cf]), float(el[r, cf])) if cf >= 0 else \
+                pointing(rows, r, self.link_sat)
+            new = (float(az[r, ct]), float(el[r, ct])) if ct >= 0 else pointing(rows, r, d.target)
+            slew = angle_between_deg(old, new)
+            repoint = float(hw.repoint_s(slew))
+            if hw.make_before_break:
+                ap = (self.aperture + 1) % hw.apertures
+                old_end, brk = d.time_s + repoint, hw.mbb_interruption_s
+                self.rec.preparing.append((d.time_s, min(old_end, self.s.duration_s)))
+            else:
+                ap = self.aperture
+                old_end, brk = d.time_s, hw.interruption_s + repoint
         nan = math.nan
         self.rec.handovers.append((
             d.time_s, self.link_sat, d.target, trigger,
             float(el[r, cf]) if cf >= 0 else nan, float(el[r, ct]) if ct >= 0 else nan,
-            float(rows.rsrp_dbm[r, cf]) if cf >= 0 else nan,
-            float(rows.rsrp_dbm[r, ct]) if ct >= 0 else nan, slew, ap, brk, repoint,
+            float(rows.rsrp_dbm[r, pf]) if pf >= 0 else nan,
+            float(rows.rsrp_dbm[r, pt]) if pt >= 0 else nan, slew, ap, brk, repoint,
             float(rows.range_km[r, cf]) if cf >= 0 else nan,
             float(rows.range_km[r, ct]) if ct >= 0 else nan,
-            _value(rows.range_rate_km_s, r, cf), _value(rows.range_rate_km_s, r, ct)))
+            _value(rows.range_rate_km_s, r, cf), _value(rows.range_rate_km_s, r, ct),
+            self.link_cell, to_cell, self.link_beam, to_beam,
+            "intra-satellite" if intra else "inter-satellite"))
         self._next_aperture = ap
+        self.next_cell = (d.target, to_cell, to_beam)
         return old_end, brk, old_end + brk
+
+    def open_next(self, t_s: float) -> None:
+        """Open the link a planned handover goes to."""
+        sat, cell, beam = self.next_cell
+        self.open_link(sat, t_s, "handover", cell, beam)
 
     def switch(self, old_end: float, brk: float) -> None:
         self.close_link(old_end, "handover")
@@ -231,10 +311,19 @@ class Execution:
             self.rec.switching.append((old_end, min(old_end + brk, self.s.duration_s)))
 
     def record_weak(self, rows: Rows, weak: np.ndarray, t_from: float, t_to: float) -> None:
-        """Instants where the serving satellite is in view but below q_out, as intervals."""
+        """Instants where the serving satellite is in view but its cell unmeasured or below
+        q_out, as intervals."""
         if not weak.any():
             return
         weak = weak & (rows.t_s >= t_from) & (rows.t_s < t_to)
         starts = rows.t_s[weak]
         self.rec.weak.extend(zip(starts.tolist(),
                                  np.minimum(starts + self.s.period_s, t_to).tolist()))
+
+    def record_sinr(self, rows: Rows, col: np.ndarray, t_from: float, t_to: float) -> None:
+        """Serving SINR at the measurement instants in [t_from, t_to) where the serving cell
+        is measured (into the run's histogram)."""
+        m = (rows.t_s >= t_from) & (rows.t_s < t_to) & (col >= 0)
+        if m.any():
+            rr = np.flatnonzero(m)
+            self.rec.sinr.add(rows.t_s[rr], rows.sinr_db[rr, col[rr]])

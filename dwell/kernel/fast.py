@@ -44,11 +44,11 @@ class FastRun(KernelRun):
             found = self._acquire(t, initial)
             if found is None:
                 break
-            sat, t_link = found
+            (sat, cell, beam), t_link = found
             if t_link >= self.s.duration_s:
                 break
             yield self._wait_until(t_link)
-            self.ex.open_link(sat, t_link, "initial" if initial else "reestablishment")
+            self.ex.open_link(sat, t_link, "initial" if initial else "reestablishment", cell, beam)
             initial = False
             while True:
                 outcome = yield from self._serve()
@@ -62,7 +62,7 @@ class FastRun(KernelRun):
                     break
                 if target is None:                  # handover into the scenario's end
                     return
-                self.ex.open_link(target, t_next, "handover")
+                self.ex.open_next(t_next)
         self.stream.release(self.stream.K, self)
 
     def _acquire(self, t_from: float, initial: bool):
@@ -77,7 +77,8 @@ class FastRun(KernelRun):
                 t_r = float(rows.t_s[r])
                 col = self.policy.select(rows, r, t_r)
                 delay = 0.0 if initial else self.s.reestablishment_s
-                return int(rows.sat[r, col]), t_r + delay
+                return (int(rows.sat[r, col]), int(rows.cell[r, col]), int(rows.beam[r, col])), \
+                    t_r + delay
             k += rows.n
             self.stream.release(k, self)
             n *= 2
@@ -86,7 +87,7 @@ class FastRun(KernelRun):
     def _serve(self):
         """Serve the current link until its next event; returns (kind, when, new satellite)."""
         ex, s = self.ex, self.s
-        sat, t_c = ex.link_sat, ex.link_start
+        sat, cell, t_c = ex.link_sat, ex.link_cell, ex.link_start
         kc = self._row(t_c)
         if kc >= self.stream.K:
             ex.close_link(s.duration_s, "end")
@@ -104,17 +105,17 @@ class FastRun(KernelRun):
                     e0 = self.stream.window_end_covering(sat, t_c)
                     e0 = t_c if e0 is None else e0
             horizon = math.inf if rows.final else float(rows.t_s[-1])
-            col, oos, ins, weak = monitoring(rows, sat, s.q_out_db, s.q_in_db)
+            col, oos, ins, weak = monitoring(rows, cell, e0, s.q_out_db, s.q_in_db)
             release = t_c + s.min_dwell_s
             if s.min_dwell_s > 0 and oos.any():
                 release = min(release, float(rows.t_s[int(np.argmax(oos))]))
-            link = Link(sat, t_c, release, 0, e0)
+            link = Link(sat, t_c, release, 0, e0, cell=cell)
             events = []
             d = self.policy.scan(rows, link)
             if d is not None:
                 events.append((d.time_s, PRIORITY["decision"], "decision", d))
             if self.policy.loss_aware:
-                loss = self._loss(rows, col, sat, e0, horizon)
+                loss = self._loss(rows, rows.column_of(sat), sat, e0, horizon)
                 if loss is not None:
                     events.append((loss.time_s, PRIORITY["loss"], "loss", loss))
             t_f = first_rlf_s(oos, ins, rows.t_s, s.n310, s.n311, s.t310_s)
@@ -129,10 +130,12 @@ class FastRun(KernelRun):
         self._n = int(min(4096, max(32, 2 * used)))
         if when >= s.duration_s:
             ex.record_weak(rows, weak, t_c, s.duration_s)
+            ex.record_sinr(rows, col, t_c, s.duration_s)
             yield self._wait_until(s.duration_s)
             ex.close_link(s.duration_s, "end")
             return None
         ex.record_weak(rows, weak, t_c, when)
+        ex.record_sinr(rows, col, t_c, when)
         yield self._wait_until(when)
         if kind == "rlf":
             return ("rlf", when, None)
@@ -158,7 +161,7 @@ class FastRun(KernelRun):
             r = rows.row_at(e)
             c = self.policy.select(rows, r, e, exclude=sat)
             if c >= 0:
-                return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r)
+                return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r, int(rows.cell[r, c]))
             # nobody in view at that end: try the serving satellite's next window end
             later = np.flatnonzero((col >= 0) & (rows.t_s > e))
             if later.size == 0:

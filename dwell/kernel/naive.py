@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import simpy
 
 from ..policies.base import Decision, Link, Policy, Rows
@@ -54,7 +55,7 @@ class NaiveRun(KernelRun):
             if t_link >= s.duration_s:
                 break
             yield self.env.timeout(t_link - self.env.now)
-            ex.open_link(int(rows.sat[r, col]), t_link, "initial" if initial else "reestablishment")
+            ex.open_cell(rows, r, col, t_link, "initial" if initial else "reestablishment")
             initial = False
             # ---------------- up: serve links until a failure
             while True:
@@ -69,7 +70,7 @@ class NaiveRun(KernelRun):
                     break
                 if target is None:
                     return
-                ex.open_link(target, t_next, "handover")
+                ex.open_next(t_next)
         self.stream.release(K, self)
 
     def _early_loss(self, rows: Rows, r: int, early: list[float], losses: list[float], sat: int):
@@ -79,23 +80,25 @@ class NaiveRun(KernelRun):
                 return None
             c = self.policy.select(rows, r, e, exclude=sat)
             if c >= 0:
-                return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r)
+                return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r, int(rows.cell[r, c]))
         return None
 
     def _serve(self):
         s, ex, dt = self.s, self.ex, self.s.period_s
-        sat, t_c = ex.link_sat, ex.link_start
+        sat, cell, t_c = ex.link_sat, ex.link_cell, ex.link_start
         kc = self._row(t_c)
         if kc >= self.stream.K:
             ex.close_link(s.duration_s, "end")
             return None
         e0 = self.stream.window_end_covering(sat, t_c)
         losses = [t_c if e0 is None else e0]      # pending ends of serving windows
-        link = Link(sat, t_c, t_c + s.min_dwell_s, 0, losses[0])
+        losses_first = losses[0]                  # the serving window covering the start
+        link = Link(sat, t_c, t_c + s.min_dwell_s, 0, losses[0], cell=cell)
         self.policy.start(link)
         oc = ic = 0
         expiry = None
         weak_from = len(ex.rec.weak)
+        sinr_seen: list[tuple[float, float]] = []
         k = kc
         while True:
             t_k = k * dt
@@ -115,15 +118,20 @@ class NaiveRun(KernelRun):
             ex.rec.events += 1
             self.stream.release(kc, self)
             col = -1
+            sat_col = -1
             for j in range(rows.sat.shape[1]):
-                if rows.sat[r, j] == sat:
+                if rows.cell[r, j] == cell and rows.sat[r, j] >= 0:
                     col = j
-            visible = col >= 0
-            snr = rows.snr_db[r, col] if visible else -math.inf
-            out_of_sync = (not visible) or snr < s.q_out_db
-            in_sync = visible and snr >= s.q_in_db
-            if visible and snr < s.q_out_db:
+                if rows.sat[r, j] == sat:
+                    sat_col = j
+            measured = col >= 0
+            sinr = rows.sinr_db[r, col] if measured else -math.inf
+            out_of_sync = (not measured) or sinr < s.q_out_db
+            in_sync = measured and sinr >= s.q_in_db
+            if (measured and sinr < s.q_out_db) or (not measured and t_k < losses_first):
                 ex.rec.weak.append((t_k, t_k + dt))
+            if measured:
+                sinr_seen.append((t_k, float(sinr)))
             if out_of_sync:
                 oc, ic = oc + 1, 0
                 if expiry is None and oc >= s.n310:
@@ -134,8 +142,8 @@ class NaiveRun(KernelRun):
                 ic, oc = ic + 1, 0
                 if expiry is not None and ic >= s.n311 and t_k < expiry:
                     expiry, oc, ic = None, 0, 0
-            if visible and rows.end_s[r, col] not in losses:
-                losses.append(float(rows.end_s[r, col]))
+            if sat_col >= 0 and rows.end_s[r, sat_col] not in losses:
+                losses.append(float(rows.end_s[r, sat_col]))
             t_next = (k + 1) * dt
             events = []
             d = self.policy.step(rows, r, link)
@@ -166,6 +174,9 @@ class NaiveRun(KernelRun):
         kept = [(a, min(b, end_rec)) for a, b in ex.rec.weak[weak_from:] if a < end_rec]
         del ex.rec.weak[weak_from:]
         ex.rec.weak.extend(kept)
+        kept_sinr = [(a, v) for a, v in sinr_seen if a < end_rec]
+        if kept_sinr:
+            ex.rec.sinr.add(np.array([a for a, _ in kept_sinr]), np.array([v for _, v in kept_sinr]))
         if kind == "end" or when >= s.duration_s:
             yield self.env.timeout(max(0.0, s.duration_s - self.env.now))
             ex.close_link(s.duration_s, "end")

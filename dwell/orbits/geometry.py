@@ -123,6 +123,13 @@ class Geometry:
         self.sky = Sky(scen.constellation, scen.epoch, self.duration_s,
                        step_s=sc["propagation_step_s"], chunk_s=sc["chunk_s"], warn=self.warn, keep=3)
         self.sites = scen.sites if sites is None else sites
+        # earth-fixed cells: their centres are extra sites, after the terminals (their windows
+        # give each cell's serving schedule); self.sites stays the terminals
+        self.ground_cells = None
+        if any(getattr(lay, "earth_fixed", False) for lay in getattr(scen, "layouts", [])):
+            from ..radio.cells import GroundCells
+            self.ground_cells = GroundCells(scen, self.sites)
+        self.all_sites = list(self.sites) + (self.ground_cells.sites if self.ground_cells else [])
         self.opts = opts or PassOptions(refine_s=sc["refine_s"])
         sats = scen.constellation.satellites
         # fastest angular motion of any satellite relative to a site (perigee speed-up included)
@@ -132,11 +139,12 @@ class Geometry:
             rate = max(rate, s.mean_motion_rad_s * (1 + e) ** 2 / (1 - e * e) ** 1.5)
         speed = max([site.max_speed_km_s for site in self.sites] + [0.0])
         self.max_rate_rad_s = rate * 1.02 + self.earth.rate_rad_s + speed / 6300.0
-        self._win_ledger = [_Ledger(slots) for _ in self.sites]   # slots: only streams need them
-        self._pass_ledger = [_Ledger(False) for _ in self.sites]
-        self.index = [WindowIndex() for _ in self.sites]
+        n = len(self.all_sites)
+        self._win_ledger = [_Ledger(slots) for _ in range(n)]   # slots: only streams need them
+        self._pass_ledger = [_Ledger(False) for _ in range(n)]
+        self.index = [WindowIndex() for _ in range(n)]
         self._done = -1
-        self.tables: list[list[SiteWindows]] = [[] for _ in self.sites]  # every chunk, kept
+        self.tables: list[list[SiteWindows]] = [[] for _ in range(n)]  # every chunk, kept
         self.evaluations = 0
 
     @property
@@ -151,7 +159,7 @@ class Geometry:
 
     def _compute(self, c: int) -> None:
         chunk = self.sky.chunk(c)
-        for k, site in enumerate(self.sites):
+        for k, site in enumerate(self.all_sites):
             passes, windows = find_windows(chunk, site, self.earth, self.max_rate_rad_s, self.opts,
                                            site.los)
             pid, _ = self._pass_ledger[k].assign(passes, chunk.t0_s)

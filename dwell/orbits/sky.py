@@ -124,23 +124,37 @@ class SkyChunk:
         per-sample gathers (about 10x faster for dense sampling).  Falls back to
         :meth:`states` when the grids are not aligned.
         """
+        return self._on_grid(sat, t_s, step_s, rate=False)
+
+    def velocities_on_grid(self, sat: np.ndarray, t_s: np.ndarray, step_s: float) -> np.ndarray:
+        """Velocities (the Hermite interpolant's derivative) at grid instants, as
+        :meth:`positions_on_grid` computes positions."""
+        return self._on_grid(sat, t_s, step_s, rate=True)
+
+    def _on_grid(self, sat: np.ndarray, t_s: np.ndarray, step_s: float, rate: bool) -> np.ndarray:
         sat = np.asarray(sat)
         t_s = np.asarray(t_s, dtype=float)
         q = self.h_s / step_s
+
+        def fallback(sat_, t_):
+            pos, vel = self.states(sat_, t_, velocity=rate)
+            return vel if rate else pos
+
         if sat.size == 0 or abs(q - round(q)) > 1e-9 or abs(self.t0_s / step_s
                                                              - round(self.t0_s / step_s)) > 1e-6:
-            return self.states(sat, t_s, velocity=False)[0]
+            return fallback(sat, t_s)
         q = int(round(q))
         i = self.interval_of(t_s)
         j = np.rint((t_s - self.grid_s[i]) / step_s).astype(np.int64)
         off = np.abs(t_s - (self.grid_s[i] + j * step_s)) > 1e-6 * step_s
         j = np.clip(j, 0, q)     # j == q is the interval's end point (last chunk instant)
         if off.mean() > 0.5:     # mostly off the grid (bisection probes): per-sample path
-            return self.states(sat, t_s, velocity=False)[0]
+            return fallback(sat, t_s)
         n_int = self.grid_s.size - 1
         seg, inv = np.unique(sat.astype(np.int64) * n_int + i, return_inverse=True)
         s_sat, s_int = seg // n_int, seg % n_int
-        w = _hermite_weights(np.arange(q + 1) / q)                       # (q+1, 6)
+        frac = np.arange(q + 1) / q
+        w = _hermite_rate_weights(frac) / self.h_s if rate else _hermite_weights(frac)  # (q+1, 6)
         out = np.empty(t_s.shape + (3,))
         batch = max(1, 4_000_000 // (3 * (q + 1)))
         for a in range(0, seg.size, batch):      # bounded memory: batches of segments
@@ -152,7 +166,7 @@ class SkyChunk:
             m = (inv >= a) & (inv < b)
             out[m] = table[inv[m] - a, j[m]]
         if off.any():                            # instants that are not on the grid after all
-            out[off] = self.states(sat[off], t_s[off], velocity=False)[0]
+            out[off] = fallback(sat[off], t_s[off])
         return out
 
     def directions(self) -> tuple[np.ndarray, np.ndarray]:
@@ -282,11 +296,18 @@ class Sky:
 
     def positions_on_grid(self, sat: np.ndarray, t_s: np.ndarray, step_s: float) -> np.ndarray:
         """Positions at grid instants k * step_s, spanning chunks (see SkyChunk)."""
+        return self._spanning(sat, t_s, lambda c, s, t: c.positions_on_grid(s, t, step_s))
+
+    def velocities_on_grid(self, sat: np.ndarray, t_s: np.ndarray, step_s: float) -> np.ndarray:
+        """Velocities at grid instants k * step_s, spanning chunks (see SkyChunk)."""
+        return self._spanning(sat, t_s, lambda c, s, t: c.velocities_on_grid(s, t, step_s))
+
+    def _spanning(self, sat, t_s, fn) -> np.ndarray:
         sat, t_s = np.broadcast_arrays(np.asarray(sat), np.asarray(t_s, dtype=float))
-        pos = np.empty(t_s.shape + (3,))
+        out = np.empty(t_s.shape + (3,))
         for chunk, m in self._by_chunk(t_s):
-            pos[m] = chunk.positions_on_grid(sat[m], t_s[m], step_s)
-        return pos
+            out[m] = fn(chunk, sat[m], t_s[m])
+        return out
 
     def states(self, sat: np.ndarray, t_s: np.ndarray, *, velocity: bool = True
                ) -> tuple[np.ndarray, np.ndarray | None]:

@@ -5,14 +5,15 @@ RSRP:  Mn + Ofn + Ocn - Hys > Mp + Ofp + Ocp + Off;  leaving:  Mn + Ofn + Ocn + 
 + Off.  All satellites share one carrier here, so Ofn = Ofp cancel; Ocn and Ocp are
 ``neighbour_offset_db`` and ``serving_offset_db``, Off is ``offset_db``, Hys ``hysteresis_db``.
 
+Neighbours are cells: any other beam of any satellite, the serving satellite's included.
 A neighbour joins the triggered list when the entering condition holds at every measurement
 during ``time_to_trigger_s`` (sample-and-hold between measurements: with period dt it must hold
 at floor(TTT/dt)+1 consecutive measurements, and it joins at first-measurement + TTT); it leaves
 when the leaving condition holds likewise, when it is no longer measured, or when its window
 ends.  The handover goes, at the first instant at or after the minimum-dwell guard's release at
 which the list is not empty, to the strongest listed neighbour (Mn + Ocn at the latest
-measurement; ties to the lower satellite index).  With no guard this is simply the first entry.
-When the serving satellite is not measured, Mp = -inf: every measured neighbour meets the
+measurement; ties to the lower satellite index, then the lower cell id).  With no guard this is simply the first entry.
+When the serving cell is not measured, Mp = -inf: every measured neighbour meets the
 entering condition.
 """
 
@@ -78,12 +79,12 @@ class EventA3(TimeToTriggerRule):
 
     # ---- vectorised ----------------------------------------------------------------------------
     def _conditions(self, rows: Rows, link: Link):
-        col = rows.column_of(link.sat)
+        col = rows.column_of_cell(link.cell)
         rr = np.arange(rows.n)
         mp = np.where(col >= 0, rows.rsrp_dbm[rr, np.maximum(col, 0)], -np.inf)
         rhs = (mp + self.ocp + self.off)[:, None]
         lhs = rows.rsrp_dbm + self.ocn
-        measured = (rows.sat >= 0) & (rows.sat != link.sat)
+        measured = (rows.sat >= 0) & (rows.cell != link.cell)
         measured[:link.r_start] = False
         with np.errstate(invalid="ignore"):
             enter = measured & (lhs - self.hys > rhs)
@@ -94,12 +95,12 @@ class EventA3(TimeToTriggerRule):
         m, n = self.m, rows.n
         if n <= m:
             return None
-        col = rows.column_of(link.sat)
+        col = rows.column_of_cell(link.cell)
         rr = np.arange(n)
         mp = np.where(col >= 0, rows.rsrp_dbm[rr, np.maximum(col, 0)], -np.inf)
-        # empty cells hold NaN and compare False; the serving satellite's cells are excluded
+        # empty cells hold NaN and compare False; the serving cell is excluded
         enter = (rows.rsrp_dbm + (self.ocn - self.hys) > (mp + self.ocp + self.off)[:, None])
-        enter &= rows.sat != link.sat
+        enter &= rows.cell != link.cell
         enter[:link.r_start] = False
         # held at row a: entering at rows a..a+m within one window.  The first such row of a
         # cell is necessarily where its run started (or the link's first row), so the earliest
@@ -188,8 +189,9 @@ class EventA3(TimeToTriggerRule):
         r = rows.row_at(t_ho, self.period_s)
         vals = lhs[r, cols]
         top = cols[vals == vals.max()]
-        c = int(top[np.argmin(rows.sat[r, top])])
-        return Decision(t_ho, int(rows.sat[r, c]), "a3", rows.k0 + r)
+        top = top[rows.sat[r, top] == rows.sat[r, top].min()]
+        c = int(top[np.argmin(rows.cell[r, top])])
+        return Decision(t_ho, int(rows.sat[r, c]), "a3", rows.k0 + r, int(rows.cell[r, c]))
 
     # ---- naive reference -----------------------------------------------------------------------
     def step(self, rows: Rows, r: int, link: Link) -> Decision | None:
@@ -200,14 +202,14 @@ class EventA3(TimeToTriggerRule):
         dt = self.period_s
         col_p = -1
         for jj in range(rows.sat.shape[1]):
-            if rows.sat[r, jj] == link.sat:
+            if rows.cell[r, jj] == link.cell and rows.sat[r, jj] >= 0:
                 col_p = jj
         mp = rows.rsrp_dbm[r, col_p] if col_p >= 0 else -math.inf
         rhs = mp + self.ocp + self.off
         seen = set()
         for jj in range(rows.sat.shape[1]):
             s = int(rows.sat[r, jj])
-            if s < 0 or s == link.sat or r < link.r_start:
+            if s < 0 or int(rows.cell[r, jj]) == link.cell or r < link.r_start:
                 continue
             w = int(rows.win[r, jj])
             seen.add(w)
@@ -254,5 +256,5 @@ class EventA3(TimeToTriggerRule):
             return None
         top_v = max(rows.rsrp_dbm[r, jj] + self.ocn for jj in best)
         top = [jj for jj in best if rows.rsrp_dbm[r, jj] + self.ocn == top_v]
-        jj = min(top, key=lambda q: rows.sat[r, q])
-        return Decision(best_t, int(rows.sat[r, jj]), "a3", rows.k0 + r)
+        jj = min(top, key=lambda q: (rows.sat[r, q], rows.cell[r, q]))
+        return Decision(best_t, int(rows.sat[r, jj]), "a3", rows.k0 + r, int(rows.cell[r, jj]))

@@ -32,6 +32,7 @@ from typing import Any, Callable, ClassVar
 import numpy as np
 
 from ..io.schema import Field, between, ge, integer, number, text
+from ..radio.cells import BEAM_STRIDE
 
 # 3GPP TS 38.331 value sets (TimeToTrigger; RLF-TimersAndConstants), from the standard's ASN.1
 TTT_VALUES_MS = (0, 40, 64, 80, 100, 128, 160, 256, 320, 480, 512, 640, 1024, 1280, 2560, 5120)
@@ -79,21 +80,53 @@ class Rows:
     certain_until_s: float = math.inf  # rows beyond this instant were not provided
     final: bool = False        # these rows reach the end of the scenario
     range_rate_km_s: np.ndarray | None = None  # (R, W) when the stream provides it
+    cell: np.ndarray | None = None          # (R, W) cell id (default: beam 0 of each satellite)
+    beam: np.ndarray | None = None          # (R, W) beam number, -1 for earth-fixed cells
+    sinr_db: np.ndarray | None = None       # (R, W) instantaneous SINR (default: the SNR)
+    rsrp_raw_dbm: np.ndarray | None = None  # (R, W) RSRP before the layer-3 filter
+    ref_km: np.ndarray | None = None        # (R, W) distance to the cell's reference location
     _cols: dict = field(default_factory=dict, repr=False, compare=False)
+
+    def __post_init__(self):
+        # rows built by hand (tests, plug-ins) may give satellites only: one cell each
+        if self.cell is None:
+            self.cell = np.where(self.sat >= 0, self.sat * BEAM_STRIDE, -1)
+        if self.beam is None:
+            self.beam = np.where(self.sat >= 0, 0, -1)
+        if self.sinr_db is None:
+            self.sinr_db = self.snr_db
+        if self.rsrp_raw_dbm is None:
+            self.rsrp_raw_dbm = self.rsrp_dbm
+        if self.ref_km is None:
+            self.ref_km = self.nadir_km
 
     @property
     def n(self) -> int:
         return int(self.t_s.size)
 
     def column_of(self, sat: int) -> np.ndarray:
-        """Column of satellite ``sat`` in each row, or -1 where it is not in view (cached)."""
-        col = self._cols.get(sat)
+        """A column of satellite ``sat`` (any of its cells) in each row, or -1 where none is
+        measured (cached).  Geometry (elevation, range, window) is the same in all of them."""
+        return self._column("sat", self.sat, sat)
+
+    def column_of_cell(self, cell: int) -> np.ndarray:
+        """Column of cell ``cell`` in each row, or -1 where it is not measured (cached)."""
+        return self._column("cell", self.cell, cell)
+
+    def _column(self, kind: str, arr: np.ndarray, value: int) -> np.ndarray:
+        col = self._cols.get((kind, value))
         if col is None:
-            hit = self.sat == sat
+            hit = arr == value
             col = np.argmax(hit, axis=1)
             col = np.where(hit[np.arange(self.n), col], col, -1)
-            self._cols[sat] = col
+            self._cols[(kind, value)] = col
         return col
+
+    def take(self, a: int, b: int) -> "Rows":
+        """Rows a..b-1 of these rows as a new Rows (views, not copies)."""
+        arrays = {f: getattr(self, f)[a:b] for f in _ROW_ARRAYS if getattr(self, f) is not None}
+        return Rows(self.k0 + a, self.t_s[a:b], certain_until_s=self.certain_until_s,
+                    final=self.final and b >= self.n, **arrays)
 
     def covers(self, r: int, col: int, t_s: float) -> bool:
         """Is the window in cell (r, col) open at instant t_s?"""
@@ -106,6 +139,11 @@ class Rows:
         return min(max(r, 0), self.n - 1)
 
 
+_ROW_ARRAYS = ("sat", "win", "rsrp_dbm", "snr_db", "elevation_deg", "azimuth_deg", "range_km",
+               "nadir_km", "start_s", "end_s", "range_rate_km_s", "cell", "beam", "sinr_db",
+               "rsrp_raw_dbm", "ref_km")
+
+
 @dataclass
 class Link:
     """The current serving link as a policy sees it."""
@@ -116,6 +154,11 @@ class Link:
     r_start: int = 0           # first row of the link in the rows given
     serving_end_s: float = math.inf  # end of the serving window open at the link's start
     state: dict[str, Any] = field(default_factory=dict)  # per-link scratch of the naive path
+    cell: int = -1             # the serving cell (-1: beam 0 of ``sat``)
+
+    def __post_init__(self):
+        if self.cell < 0:
+            self.cell = self.sat * BEAM_STRIDE
 
 
 @dataclass
@@ -124,6 +167,7 @@ class Decision:
     target: int                # satellite index
     trigger: str               # why: "a3", "elevation", "loss", "t1", "d1", ...
     row: int                   # absolute row index whose measurements decided it
+    cell: int = -1             # target cell; -1: the target satellite's strongest cell
 
 
 class Policy:
@@ -155,16 +199,14 @@ class Policy:
         return rows.elevation_deg[r]
 
     def select(self, rows: Rows, r: int, t_s: float, exclude: int = -1) -> int:
-        """Best cell of row r whose window is open at t_s, or -1.  Ties go to the lower
-        satellite index, so the choice never depends on column order."""
+        """Best cell of row r whose window is open at t_s, or -1 (``exclude``: a satellite
+        not to take).  Ties go to the lower satellite index, then to the stronger cell (higher
+        RSRP), then to the lower cell id, so the choice never depends on column order."""
         ok = (rows.sat[r] >= 0) & (rows.sat[r] != exclude) & (rows.start_s[r] <= t_s) & \
              (t_s < rows.end_s[r])
         if not ok.any():
             return -1
-        score = np.where(ok, self.score(rows, r), -np.inf)
-        best = score.max()
-        tied = np.flatnonzero(ok & (score == best))
-        return int(tied[np.argmin(rows.sat[r, tied])])
+        return int(best_column(rows, self.score(rows, r)[None, :], ok[None, :], rows_sel=r)[0])
 
     # --- the two kernels' entry points ---------------------------------------------------------
     def scan(self, rows: Rows, link: Link) -> Decision | None:
@@ -186,22 +228,51 @@ class Policy:
         raise TypeError(f"policy {self.rule!r} implements neither scan nor step")
 
 
-def better_than_serving(rows: Rows, score: np.ndarray, serving_col: np.ndarray,
-                        margin: float) -> tuple[np.ndarray, np.ndarray]:
-    """Per row: the best cell by ``score`` (ties to the lower satellite index) and whether it
-    beats the serving cell by more than ``margin`` (always, when the serving cell is absent)."""
-    ok = rows.sat >= 0
+def best_column(rows: Rows, score: np.ndarray, ok: np.ndarray,
+                rows_sel: int | slice = slice(None)) -> np.ndarray:
+    """Per row, the column with the highest ``score`` among ``ok`` cells; ties go to the
+    lower satellite index, then the higher RSRP, then the lower cell id (-1 if none is ok).
+    ``rows_sel`` picks the rows of ``rows`` that ``score`` and ``ok`` describe."""
+    sat = np.atleast_2d(rows.sat[rows_sel])
+    cell = np.atleast_2d(rows.cell[rows_sel])
+    rsrp = np.nan_to_num(np.atleast_2d(rows.rsrp_dbm[rows_sel]), nan=-np.inf)
+    big = np.iinfo(np.int64).max
     sc = np.where(ok, score, -np.inf)
-    best_val = sc.max(axis=1, initial=-np.inf)
-    tied = ok & (sc == best_val[:, None])
-    sat_key = np.where(tied, rows.sat, np.iinfo(np.int64).max)
-    best_col = np.argmin(sat_key, axis=1)
+    top = ok & (sc == sc.max(axis=1, initial=-np.inf)[:, None])
+    s_key = np.where(top, sat, big)
+    top &= s_key == s_key.min(axis=1, initial=big)[:, None]
+    r_key = np.where(top, rsrp, -np.inf)
+    top &= r_key == r_key.max(axis=1, initial=-np.inf)[:, None]
+    c_key = np.where(top, cell, big)
+    col = np.argmin(c_key, axis=1)
+    return np.where(top.any(axis=1), col, -1)
+
+
+def better_than_serving(rows: Rows, score: np.ndarray, serving_col: np.ndarray,
+                        margin: float, exclude_sat: int | None = None
+                        ) -> tuple[np.ndarray, np.ndarray]:
+    """Per row: the best cell by ``score`` (ties as in :func:`best_column`) and whether it
+    beats the serving column by more than ``margin`` (always, when the serving cell is
+    absent).  ``exclude_sat`` leaves one satellite's cells out of the contest."""
+    ok = rows.sat >= 0
+    if exclude_sat is not None:
+        ok &= rows.sat != exclude_sat
+    sc = np.where(ok, score, -np.inf)
+    best_col = best_column(rows, score, ok)
     rr = np.arange(rows.n)
-    serving_val = np.where(serving_col >= 0, sc[rr, np.maximum(serving_col, 0)], -np.inf)
-    has_best = np.isfinite(best_val)
-    beats = has_best & (best_col != serving_col) & (best_val > serving_val + margin)
-    beats &= (rows.sat[rr, best_col] >= 0)
+    bc = np.maximum(best_col, 0)
+    best_val = np.where(best_col >= 0, sc[rr, bc], -np.inf)
+    serving_val = np.where(serving_col >= 0, np.where(rows.sat >= 0, score, -np.inf)[
+        rr, np.maximum(serving_col, 0)], -np.inf)
+    beats = (best_col >= 0) & (best_col != serving_col) & (best_val > serving_val + margin)
     return best_col, beats
+
+
+def strongest_of_satellite(rows: Rows, sat: int) -> np.ndarray:
+    """Per row, the column of satellite ``sat``'s strongest cell (RSRP; ties to the lower cell
+    id), or -1 where none of its cells is measured."""
+    ok = rows.sat == sat
+    return best_column(rows, np.nan_to_num(rows.rsrp_dbm, nan=-np.inf), ok)
 
 
 def held_runs(cond: np.ndarray, win: np.ndarray, m: int) -> np.ndarray:

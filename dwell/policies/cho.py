@@ -9,7 +9,8 @@ Conditions (``condition``), combinable with an A3 entering condition (``"t1+a3"`
 - ``d1``: distance-based: distance from the terminal to the serving reference location above
   ``d1_serving_km`` + hysteresis and to the candidate's below ``d1_candidate_km`` - hysteresis
   (distanceThreshFromReference1/2, hysteresisLocation of event D1).  The reference location of a
-  satellite is its nadir point (a moving reference; Rel-17 also allows fixed ones).
+  cell is its beam centre's ground point (moving with an earth-moving beam; the nadir point for
+  a single-beam satellite) or, for an earth-fixed cell, the cell centre.
 - ``a3``: the A3 entering condition of :mod:`.a3`.
 
 The combined condition must hold for ``time_to_trigger_s`` (with the same sample-and-hold rule
@@ -26,7 +27,7 @@ from ..io.errors import InputError
 from ..io.schema import ge, number, text
 from . import register
 from .a3 import A3_KEYS, TimeToTriggerRule
-from .base import Decision, Link, Rows, held_runs
+from .base import Decision, Link, Rows, best_column, held_runs
 
 CONDITIONS = ("t1", "d1", "a3", "t1+a3", "d1+a3")
 _TARGET = {"elevation": lambda rows: rows.elevation_deg,
@@ -67,10 +68,10 @@ class ConditionalHandover(TimeToTriggerRule):
 
     def _condition(self, rows: Rows, link: Link) -> np.ndarray:
         p = self.params
-        col = rows.column_of(link.sat)
+        col = rows.column_of_cell(link.cell)
         rr = np.arange(rows.n)
         has = col >= 0
-        cond = (rows.sat >= 0) & (rows.sat != link.sat)
+        cond = (rows.sat >= 0) & (rows.cell != link.cell)
         cond &= (rows.t_s[:, None] - rows.start_s) >= p["preparation_s"]
         cond &= (rows.t_s >= link.release_s)[:, None]
         cond[:link.r_start] = False
@@ -80,9 +81,9 @@ class ConditionalHandover(TimeToTriggerRule):
                 cond &= (rows.rsrp_dbm + p["neighbour_offset_db"] - p["hysteresis_db"]
                          > (mp + p["serving_offset_db"] + p["offset_db"])[:, None])
             if "d1" in self.parts:
-                dp = np.where(has, rows.nadir_km[rr, np.maximum(col, 0)], np.inf)
+                dp = np.where(has, rows.ref_km[rr, np.maximum(col, 0)], np.inf)
                 cond &= (dp > p["d1_serving_km"] + p["d1_hysteresis_km"])[:, None]
-                cond &= rows.nadir_km < p["d1_candidate_km"] - p["d1_hysteresis_km"]
+                cond &= rows.ref_km < p["d1_candidate_km"] - p["d1_hysteresis_km"]
             if "t1" in self.parts:
                 t1 = link.serving_end_s - p["t1_lead_s"]
                 # TS 38.331 CondEvent T1 (from memory): entering Mt > Thresh1, leaving
@@ -104,10 +105,16 @@ class ConditionalHandover(TimeToTriggerRule):
         t_ho = float(tau.min())
         cols = j[tau == t_ho]
         r = rows.row_at(t_ho, self.period_s)
-        sc = self.score(rows, r)[cols]
-        top = cols[sc == sc.max()]
-        c = int(top[np.argmin(rows.sat[r, top])])
-        return Decision(t_ho, int(rows.sat[r, c]), self.params["condition"], rows.k0 + r)
+        return self._choose(rows, r, cols, t_ho)
+
+    def _choose(self, rows: Rows, r: int, cols: np.ndarray, t_ho: float) -> Decision:
+        """Among candidate columns at row r: the best by ``target`` (ties as in
+        :func:`dwell.policies.base.best_column`)."""
+        ok = np.zeros(rows.sat.shape[1], bool)
+        ok[np.asarray(cols, dtype=np.int64)] = True
+        c = int(best_column(rows, self.score(rows, r)[None, :], ok[None, :], rows_sel=r)[0])
+        return Decision(t_ho, int(rows.sat[r, c]), self.params["condition"], rows.k0 + r,
+                        int(rows.cell[r, c]))
 
     def step(self, rows: Rows, r: int, link: Link) -> Decision | None:
         # the naive reference: per-cell run counters kept in the link's scratch state
@@ -115,7 +122,7 @@ class ConditionalHandover(TimeToTriggerRule):
         runs = link.state.setdefault("runs", {})
         seen, fired = set(), []
         for jj in range(rows.sat.shape[1]):
-            if rows.sat[r, jj] < 0 or rows.sat[r, jj] == link.sat:
+            if rows.sat[r, jj] < 0 or int(rows.cell[r, jj]) == link.cell:
                 continue
             w = int(rows.win[r, jj])
             seen.add(w)
@@ -134,16 +141,11 @@ class ConditionalHandover(TimeToTriggerRule):
             return None
         t_ho = min(t for t, _ in fired)
         cols = [jj for t, jj in fired if t == t_ho]
-        sc = self.score(rows, r)
-        best = max(sc[jj] for jj in cols)
-        jj = min((q for q in cols if sc[q] == best), key=lambda q: rows.sat[r, q])
-        return Decision(t_ho, int(rows.sat[r, jj]), self.params["condition"], rows.k0 + r)
+        return self._choose(rows, r, np.array(cols), t_ho)
 
     def _condition_row(self, rows: Rows, r: int, link: Link) -> np.ndarray:
         # one row of the condition, evaluated by the same formula as the vectorised path
-        one = Rows(rows.k0 + r, rows.t_s[r:r + 1], *(getattr(rows, f)[r:r + 1] for f in (
-            "sat", "win", "rsrp_dbm", "snr_db", "elevation_deg", "azimuth_deg", "range_km",
-            "nadir_km", "start_s", "end_s")))
+        one = rows.take(r, r + 1)
         sub = Link(link.sat, link.start_s, link.release_s, 0 if r >= link.r_start else 1,
-                   link.serving_end_s, link.state)
+                   link.serving_end_s, link.state, link.cell)
         return self._condition(one, sub)[0]

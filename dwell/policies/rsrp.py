@@ -1,5 +1,6 @@
-"""Strongest filtered RSRP: switch when another satellite's layer-3 filtered RSRP beats the
-serving one by more than ``hysteresis_db`` (no time-to-trigger; see :mod:`.a3` for that)."""
+"""Strongest filtered RSRP: switch when another cell's layer-3 filtered RSRP (a beam of any
+satellite, the serving one's included) beats the serving cell by more than ``hysteresis_db``
+(no time-to-trigger; see :mod:`.a3` for that)."""
 
 from __future__ import annotations
 
@@ -17,6 +18,7 @@ class StrongestRsrp(_RowRule):
     loss_aware = False           # it learns of a loss only through its measurements
     trigger = "rsrp"
     margin_key = "hysteresis_db"
+    per_cell = True
 
     def score(self, rows, r):
         return np.nan_to_num(rows.rsrp_dbm[r], nan=-np.inf)

@@ -14,7 +14,7 @@ with no Python loop over samples.
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 from scipy.signal import lfilter
@@ -55,10 +55,33 @@ def doppler_hz(range_rate_km_s: np.ndarray | float, frequency_ghz: np.ndarray | 
     return -f_hz * np.asarray(range_rate_km_s, dtype=float) / C_KM_S
 
 
-def thermal_noise_dbm(bandwidth_hz: np.ndarray | float, noise_figure_db: np.ndarray | float) -> np.ndarray:
-    """Receiver noise power: ``-174 dBm/Hz (kT0, T0 = 290 K) + 10 log10 B + NF``, in dBm."""
+T0_K = 290.0         # reference temperature of the noise figure (IEEE definition)
+
+
+def thermal_noise_dbm(bandwidth_hz: np.ndarray | float, noise_figure_db: np.ndarray | float,
+                      antenna_temperature_k: float = T0_K) -> np.ndarray:
+    """Receiver noise power ``k T_sys B`` in dBm, with the system noise temperature
+    ``T_sys = T_ant + (F - 1) T0`` referred to the antenna terminals (F the noise factor,
+    T0 = 290 K; the usual receiver-noise cascade, e.g. Pozar, Microwave Engineering, ch. 10).
+
+    Written ``-174 dBm/Hz (kT0) + 10 log10(T_sys / T0) + 10 log10 B``; with T_ant = T0 this is
+    the familiar ``-174 + 10 log10 B + NF``.
+    """
+    nf = np.asarray(noise_figure_db, dtype=float)
+    t_ant = np.asarray(antenna_temperature_k, dtype=float)
+    t_sys = t_ant + (10.0 ** (nf / 10.0) - 1.0) * T0_K
+    # at T_ant = T0 the term is NF itself: take it as given (no round trip through 10^x)
+    excess_db = np.where(t_ant == T0_K, nf, 10.0 * np.log10(np.maximum(t_sys, 1e-12) / T0_K))
+    return KT0_DBM_HZ + 10.0 * np.log10(np.asarray(bandwidth_hz, dtype=float)) + excess_db
+
+
+def noise_from_g_over_t_dbm(bandwidth_hz: np.ndarray | float, g_over_t_db_k: float,
+                            gain_dbi: float) -> np.ndarray:
+    """Noise power ``k T_sys B`` (dBm) for a receiver quoted by its figure of merit G/T:
+    ``T_sys = G / (G/T)`` with G the antenna gain the budget applies."""
+    t_sys_dbk = gain_dbi - g_over_t_db_k
     return KT0_DBM_HZ + 10.0 * np.log10(np.asarray(bandwidth_hz, dtype=float)) \
-        + np.asarray(noise_figure_db, dtype=float)
+        + t_sys_dbk - 10.0 * np.log10(T0_K)
 
 
 # ---- antennas -----------------------------------------------------------------------------------
@@ -285,6 +308,12 @@ KEYS: dict[str, Field] = {
                                  doc="x of the cos^x panel scan loss (common practice)"),
     "noise_figure_db": number(7.0, between(0, 30),
                               doc="terminal noise figure (handheld, TR 38.821, from memory)"),
+    "antenna_temperature_k": number(290.0, between(0, 5000),
+                                    doc="terminal antenna noise temperature (TR 38.821: 290 K "
+                                        "handheld, 150 K VSAT, from memory)"),
+    "g_over_t_db_k": Field((int, float), None, (between(-60, 60),),
+                           "terminal G/T; when set it replaces noise figure and antenna "
+                           "temperature (T_sys = G / (G/T))"),
     "other_losses_db": number(0.0, ge(0), le(200),
                               doc="atmospheric, polarisation and other losses, lumped"),
     "shadowing_std_db": number(0.0, between(0, 30), doc="log-normal shadowing std; 0 = off"),
@@ -293,19 +322,53 @@ KEYS: dict[str, Field] = {
     "l3_filter_k": Field((int,), 4, (), "TS 38.331 filterCoefficient k (0 = no filtering)",
                          choices=FILTER_COEFFICIENTS),
     "l1_period_s": number(0.2, gt(0), le(10), doc="L1 measurement period the k refers to"),
-    "q_out_snr_db": number(-8.0, between(-40, 40),
-                           doc="radio link monitoring out-of-sync SNR (common practice, from memory)"),
-    "q_in_snr_db": number(-6.0, between(-40, 40),
-                          doc="radio link monitoring in-sync SNR (common practice, from memory)"),
+    "q_out_sinr_db": number(-8.0, between(-40, 40),
+                            doc="radio link monitoring out-of-sync SINR (common practice, from "
+                                "memory)"),
+    "q_in_sinr_db": number(-6.0, between(-40, 40),
+                           doc="radio link monitoring in-sync SINR (common practice, from memory)"),
+    "interference": Field((bool,), None, (),
+                          "co-channel interference from the beams of every satellite in view; "
+                          "default: on when any constellation has a multi-beam layout"),
+    "preset": Field((str,), None, (), "a named parameter set (see dwell.radio.presets); keys "
+                    "given in the table override it"),
 }
 
+RENAMED = {"q_out_snr_db": "q_out_sinr_db", "q_in_snr_db": "q_in_sinr_db"}
 
-def check_table(raw: dict[str, Any], source: str) -> dict[str, Any]:
-    """Check the ``[link]`` table against :data:`KEYS` (defaults filled) and cross-check keys."""
+
+def check_table(raw: dict[str, Any], source: str,
+                warn: Callable[[str], None] | None = None) -> dict[str, Any]:
+    """Check the ``[link]`` table against :data:`KEYS` (defaults filled) and cross-check keys.
+
+    A ``preset`` fills the keys the table does not give (see :mod:`dwell.radio.presets`); the
+    old names ``q_out_snr_db`` / ``q_in_snr_db`` are accepted with a warning (radio link
+    monitoring judges SINR, so the keys are now ``q_out_sinr_db`` / ``q_in_sinr_db``).
+    """
+    from .presets import PRESETS
+
+    if not isinstance(raw, dict):
+        raise InputError(source, "link", raw, "must be a table")
+    raw = dict(raw)
+    for old, new in RENAMED.items():
+        if old in raw:
+            if new in raw:
+                raise InputError(source, f"link.{old}", raw[old],
+                                 f"give {new} only ({old} is its old name)")
+            if warn is not None:
+                warn(f"warning: {source}: link.{old} is now link.{new} (radio link monitoring "
+                     "judges SINR); read as such")
+            raw[new] = raw.pop(old)
+    preset = raw.get("preset")
+    if preset is not None:
+        if not isinstance(preset, str) or preset not in PRESETS:
+            raise InputError(source, "link.preset", preset,
+                             "unknown preset (known: " + ", ".join(sorted(PRESETS)) + ")")
+        raw = {**PRESETS[preset].values, **raw}
     out = _check_spec(raw, KEYS, source, "link")
-    if out["q_in_snr_db"] < out["q_out_snr_db"]:
-        raise InputError(source, "link.q_in_snr_db", out["q_in_snr_db"],
-                         f"must be >= link.q_out_snr_db ({out['q_out_snr_db']:g})")
+    if out["q_in_sinr_db"] < out["q_out_sinr_db"]:
+        raise InputError(source, "link.q_in_sinr_db", out["q_in_sinr_db"],
+                         f"must be >= link.q_out_sinr_db ({out['q_out_sinr_db']:g})")
     rb_mhz = 12 * out["subcarrier_spacing_khz"] / 1000.0  # one resource block
     if out["bandwidth_mhz"] < rb_mhz:
         raise InputError(source, "link.bandwidth_mhz", out["bandwidth_mhz"],
@@ -331,8 +394,18 @@ class LinkModel:
         ``exp(-period_s / shadowing_decorrelation_s)``."""
         return float(np.exp(-period_s / float(self.params["shadowing_decorrelation_s"])))
 
+    def noise_dbm(self) -> float:
+        """Receiver noise over the channel bandwidth (dBm): from G/T when given, else from the
+        noise figure and the antenna temperature."""
+        p = self.params
+        bw_hz = p["bandwidth_mhz"] * 1e6
+        if p.get("g_over_t_db_k") is not None:
+            return float(noise_from_g_over_t_dbm(bw_hz, p["g_over_t_db_k"], p["terminal_gain_dbi"]))
+        return float(thermal_noise_dbm(bw_hz, p["noise_figure_db"], p["antenna_temperature_k"]))
+
     def budget(self, range_km: np.ndarray, elevation_deg: np.ndarray, off_boresight_deg: np.ndarray,
-               range_rate_km_s: np.ndarray | None = None) -> dict[str, np.ndarray]:
+               range_rate_km_s: np.ndarray | None = None, *, gain_dbi: np.ndarray | None = None,
+               max_gain_dbi: np.ndarray | float | None = None) -> dict[str, np.ndarray]:
         """Budget terms for broadcast arrays of slant range, terminal elevation and satellite
         off-boresight angle.
 
@@ -347,7 +420,9 @@ class LinkModel:
           over the band (equal to the per-RE SNR for a flat power density).
 
         The scan angle is ``90 - elevation`` (zenith-facing panel).  ``doppler_hz`` is NaN when no
-        range rate is given.  No shadowing or measurement noise is applied here.
+        range rate is given.  No shadowing or measurement noise is applied here.  A multi-beam
+        payload passes each beam's gain towards the terminal (``gain_dbi``) and the beams' peak
+        gain (``max_gain_dbi``) instead of the ``[link]`` antenna.
         """
         p = self.params
         rdot = np.nan if range_rate_km_s is None else range_rate_km_s
@@ -355,16 +430,20 @@ class LinkModel:
             *(np.asarray(v, dtype=float) for v in (range_km, elevation_deg, off_boresight_deg, rdot)))
         f_ghz = self.frequency_ghz
         loss = fspl_db(rng, f_ghz)
-        if p["sat_beam_pointing"] == "terminal":
-            theta = np.zeros_like(theta)
-        gain = satellite_gain_dbi(theta, p["sat_aperture_m"], f_ghz, p["sat_max_gain_dbi"])
+        if gain_dbi is not None:
+            gain = np.broadcast_to(np.asarray(gain_dbi, dtype=float), rng.shape)
+            g_max = np.asarray(max_gain_dbi, dtype=float)
+        else:
+            if p["sat_beam_pointing"] == "terminal":
+                theta = np.zeros_like(theta)
+            gain = satellite_gain_dbi(theta, p["sat_aperture_m"], f_ghz, p["sat_max_gain_dbi"])
+            g_max = p["sat_max_gain_dbi"]
         scan = scan_loss_db(90.0 - elev, p["scan_loss_exponent"])
-        common = (gain - p["sat_max_gain_dbi"]) + p["terminal_gain_dbi"] - scan - loss \
-            - p["other_losses_db"]
+        common = (gain - g_max) + p["terminal_gain_dbi"] - scan - loss - p["other_losses_db"]
         eirp_dbm_mhz = p["eirp_density_dbw_mhz"] + 30.0
         rsrp = eirp_dbm_mhz + 10.0 * np.log10(p["subcarrier_spacing_khz"] / 1000.0) + common
         rx_dbm = eirp_dbm_mhz + 10.0 * np.log10(p["bandwidth_mhz"]) + common
-        snr = rx_dbm - thermal_noise_dbm(p["bandwidth_mhz"] * 1e6, p["noise_figure_db"])
+        snr = rx_dbm - self.noise_dbm()
         dop = doppler_hz(rdot, f_ghz)  # NaN in, NaN out when no range rate is given
         return {"fspl_db": loss, "sat_gain_dbi": gain, "scan_loss_db": scan, "rsrp_dbm": rsrp,
                 "snr_db": snr, "delay_ms": one_way_delay_ms(rng), "doppler_hz": dop}

@@ -1,14 +1,24 @@
-"""What a terminal measures at each measurement instant: the satellites in view and their link.
+"""What a terminal measures at each measurement instant: the cells in view and their link.
 
 :class:`MeasurementStream` builds, block by block, the :class:`~dwell.policies.base.Rows` every
 kernel and policy reads: for each instant ``t_k = k * period`` and each satellite window in view,
-geometry (Hermite-interpolated, never a propagator call), the link budget, optional correlated
-log-normal shadowing, measurement noise, and the layer-3 filter (TS 38.331 section 5.5.3.2, with
-the coefficient adapted to the simulated period as in :func:`dwell.radio.link.l3_alpha`).
+geometry (Hermite-interpolated, never a propagator call); the cells of that satellite around the
+terminal (:mod:`dwell.radio.cells`: its single beam, the earth-moving beams near the terminal's
+direction, or the earth-fixed cells it serves); each cell's link budget, SINR against the
+co-channel cells of every satellite in view (:mod:`dwell.radio.interference`), optional
+correlated log-normal shadowing (a property of the path to the satellite, shared by its beams),
+measurement noise (per cell), and the layer-3 filter (TS 38.331 section 5.5.3.2, with the
+coefficient adapted to the simulated period as in :func:`dwell.radio.link.l3_alpha`).
+
+Columns hold *cell runs*: the rows over which one cell of one satellite window is measured
+without a break.  They are laid out by interval colouring (a column is reused once its run
+ends), so the matrix stays as narrow as the most cells measured at once.  The layer-3 filter
+runs along each cell run.
 
 Blocks are built in time order (filter and shadowing states carry from one block to the next)
 and dropped once every reader has moved past them, so memory stays bounded for any duration.
-Cost per block: one vectorised pass over its (instant, satellite-in-view) pairs.
+Cost per block: one vectorised pass over its (instant, satellite-in-view) pairs and their
+cells, plus a Python step per cell run for the column layout.
 """
 
 from __future__ import annotations
@@ -28,9 +38,12 @@ from . import noise
 
 _SHADOW = noise.stream_id("shadowing")
 _MEASURE = noise.stream_id("measurement")
+_MEASURE_GROUND = noise.stream_id("measurement-ground-cells")
 _NLOS = noise.stream_id("nlos-rows")
-FIELDS = ("sat", "win", "rsrp_dbm", "snr_db", "elevation_deg", "azimuth_deg", "range_km",
-          "nadir_km", "start_s", "end_s", "range_rate_km_s")
+FIELDS = ("sat", "win", "cell", "beam", "rsrp_dbm", "rsrp_raw_dbm", "snr_db", "sinr_db",
+          "elevation_deg", "azimuth_deg", "range_km", "nadir_km", "ref_km", "start_s", "end_s",
+          "range_rate_km_s")
+INT_FIELDS = ("sat", "win", "cell", "beam")
 
 
 def row_count(duration_s: float, period_s: float) -> int:
@@ -55,6 +68,56 @@ def row_at_or_after(t_s: float, period_s: float) -> int:
     return k
 
 
+class _RunLedger:
+    """Ids and columns of cell runs, carried across blocks (greedy interval colouring)."""
+
+    def __init__(self):
+        self.open: dict[tuple[int, int], tuple[int, int]] = {}   # (window, cell) -> (id, column)
+        self.busy: list[tuple[int, int]] = []                    # (first free row, column) heap
+        self.free: list[int] = []
+        self.next_id = 0
+        self.n_cols = 0
+
+    def assign(self, win: np.ndarray, cell: np.ndarray, first_k: np.ndarray, last_k: np.ndarray,
+               k_a: int, k_b: int) -> tuple[np.ndarray, np.ndarray]:
+        """Run ids and columns of this block's runs (each given by its window, cell and first
+        and last row); a run starting at the block's first row continues an open run of the
+        same window and cell."""
+        import heapq
+
+        n = win.size
+        ids = np.empty(n, dtype=np.int64)
+        cols = np.empty(n, dtype=np.int64)
+        keys = list(zip(win.tolist(), cell.tolist()))
+        cont = [first_k[i] == k_a and keys[i] in self.open for i in range(n)]
+        kept = {keys[i] for i in range(n) if cont[i]}
+        for key, (_, col) in self.open.items():        # open runs that stopped at the edge
+            if key not in kept:
+                heapq.heappush(self.busy, (k_a, col))
+        new_open: dict[tuple[int, int], tuple[int, int]] = {}
+        for i in np.argsort(first_k, kind="stable").tolist():
+            if cont[i]:
+                rid, col = self.open[keys[i]]
+            else:
+                f = int(first_k[i])
+                while self.busy and self.busy[0][0] <= f:
+                    heapq.heappush(self.free, heapq.heappop(self.busy)[1])
+                if self.free:
+                    col = heapq.heappop(self.free)
+                else:
+                    col = self.n_cols
+                    self.n_cols += 1
+                rid = self.next_id
+                self.next_id += 1
+            ids[i], cols[i] = rid, col
+            if last_k[i] == k_b - 1:
+                new_open[keys[i]] = (rid, col)
+            else:
+                heapq.heappush(self.busy, (int(last_k[i]) + 1, col))
+        self.open = new_open
+        return ids, cols
+
+
 class MeasurementStream:
     """Measurement rows of one terminal, built lazily in blocks."""
 
@@ -76,6 +139,11 @@ class MeasurementStream:
         self.nlos_db = None if los is None or los.blocks else float(los.nlos_loss_db)
         self.rho_nlos = (los_mod.lag_correlation(self.period_s, los.decorrelation_s)
                          if self.nlos_db is not None else 0.0)
+        scen = geo.scen
+        self.layouts = list(scen.layouts) or [None]
+        self.sat_table = np.array([s.table for s in scen.constellation.satellites], dtype=np.int64)
+        self.interference = bool(self.lp.get("interference"))
+        self.ground = getattr(geo, "ground_cells", None)
         self.buf: dict[str, np.ndarray] = {}
         self.buf_t = np.zeros(0)
         self.buf_k0 = 0                   # row index of the buffer's first row
@@ -87,7 +155,9 @@ class MeasurementStream:
         self._carry_filter: dict[int, float] = {}
         self._carry_shadow: dict[int, float] = {}
         self._carry_nlos: dict[int, float] = {}
+        self._runs = _RunLedger()
         self.samples = 0
+        self.uncovered: list[tuple[float, float]] = []   # satellites in view, no cell measured
 
     # ---- public ------------------------------------------------------------------------------
     def time_of(self, k: int) -> float:
@@ -109,7 +179,8 @@ class MeasurementStream:
         return Rows(k_a, t, v["sat"], v["win"], v["rsrp_dbm"], v["snr_db"], v["elevation_deg"],
                     v["azimuth_deg"], v["range_km"], v["nadir_km"], v["start_s"], v["end_s"],
                     certain_until_s=math.inf if final else float(t[-1]), final=final,
-                    range_rate_km_s=v["range_rate_km_s"])
+                    range_rate_km_s=v["range_rate_km_s"], cell=v["cell"], beam=v["beam"],
+                    sinr_db=v["sinr_db"], rsrp_raw_dbm=v["rsrp_raw_dbm"], ref_km=v["ref_km"])
 
     def release(self, k: int, reader: object = None) -> None:
         """``reader`` no longer needs rows before k; rows every reader has passed may go."""
@@ -173,7 +244,7 @@ class MeasurementStream:
         c_a = geo.sky.chunk_index(t_a)
         c_b = geo.sky.chunk_index(t_b)
         geo.chunk_windows(c_b)
-        sat, start, end, wid, slot = [], [], [], [], []
+        sat, start, end, wid = [], [], [], []
         for c in range(c_a, c_b + 1):
             sw = geo.tables[self.k_site][c]
             w = sw.windows
@@ -182,96 +253,208 @@ class MeasurementStream:
             start.append(w.start_s[m])
             end.append(w.end_s[m])
             wid.append(sw.wid[m])
-            slot.append(sw.slot[m])
-        cat = [np.concatenate(x) for x in (sat, start, end, wid, slot)]
+        cat = [np.concatenate(x) for x in (sat, start, end, wid)]
         geo.ensure_closed(self.k_site, np.unique(cat[3]))
         return cat
 
     def _build(self, b: int) -> None:
         k_a = b * self.B
         k_b = min(self.K, k_a + self.B)
+        nb = k_b - k_a
         dt = self.period_s
         t_a, t_b = k_a * dt, (k_b - 1) * dt
-        sat, start, end, wid, slot = self._pieces(t_a, t_b)
+        if self.ground is not None:
+            self.ground.build_schedules(self.geo, len(self.geo.sites))
+        sat, start, end, wid = self._pieces(t_a, t_b)
         # rows of each piece inside this block: start <= t_k < end
         r0 = np.maximum(first_row_at_or_after(start, dt), k_a)
         r1 = np.maximum(np.minimum(first_row_at_or_after(end, dt), k_b), r0)   # exclusive
-        n = r1 - r0
-        piece = np.repeat(np.arange(sat.size), n)
+        piece = np.repeat(np.arange(sat.size), r1 - r0)
         k = _ranges(r0, r1)
         # pairs ordered window by window, then time: one contiguous segment per window
         order = np.lexsort((k, wid[piece]))
         piece, k = piece[order], k[order]
-        w_of = wid[piece]
-        width = int(slot.max()) + 1 if slot.size else 1
-        blk = {f: np.full((k_b - k_a, width), -1 if f in ("sat", "win") else np.nan,
-                          dtype=np.int64 if f in ("sat", "win") else float) for f in FIELDS}
-        self.samples += k.size
+        blk = None
         if k.size:
-            vals = self._measure(sat[piece], w_of, k)
-            idx = self.geo.index[self.k_site]
-            rows = k - k_a
-            cols = slot[piece]
-            blk["sat"][rows, cols] = sat[piece]
-            blk["win"][rows, cols] = w_of
-            blk["start_s"][rows, cols] = idx.start_s[w_of]
-            blk["end_s"][rows, cols] = idx.end_s[w_of]
-            for f, v in vals.items():
-                blk[f][rows, cols] = v
+            cells, vals = self._measure(sat[piece], wid[piece], k, k_a, nb)
+            blk = self._lay_out(cells, vals, k_a, k_b)
+            covered = np.zeros(nb, bool)
+            covered[vals["row"]] = True
+            seen = np.zeros(nb, bool)
+            seen[k - k_a] = True
+            self._note_uncovered(np.flatnonzero(seen & ~covered) + k_a)
+        if blk is None:
+            blk = {f: np.full((nb, 1), -1 if f in INT_FIELDS else np.nan,
+                              dtype=np.int64 if f in INT_FIELDS else float) for f in FIELDS}
         self._append(blk, k_a, k_b)
         self.built = b
         ended = self.geo.index[self.k_site].end_s
-        for store in (self._carry_filter, self._carry_shadow, self._carry_nlos):
+        for store in (self._carry_shadow, self._carry_nlos):
             for w in [w for w in store if ended[w] <= k_b * dt]:
                 del store[w]
+        live = {rid for rid, _ in self._runs.open.values()}
+        for rid in [r for r in self._carry_filter if r not in live]:
+            del self._carry_filter[rid]
 
-    def _measure(self, sat: np.ndarray, win: np.ndarray, k: np.ndarray) -> dict[str, np.ndarray]:
-        """Geometry and link values of (satellite, window, row) pairs sorted by window, row."""
+    def _note_uncovered(self, rows_k: np.ndarray) -> None:
+        """Instants with a satellite in view but no cell measured, as [t_k, t_k + dt) runs."""
+        if rows_k.size == 0:
+            return
+        brk = np.flatnonzero(np.diff(rows_k) > 1)
+        first = np.concatenate([[0], brk + 1])
+        last = np.concatenate([brk, [rows_k.size - 1]])
+        dt = self.period_s
+        for a, b in zip(rows_k[first].tolist(), rows_k[last].tolist()):
+            s, e = a * dt, min((b + 1) * dt, self.geo.duration_s)
+            if self.uncovered and abs(self.uncovered[-1][1] - s) < 1e-9:
+                self.uncovered[-1] = (self.uncovered[-1][0], e)
+            else:
+                self.uncovered.append((s, e))
+
+    def _measure(self, sat: np.ndarray, win: np.ndarray, k: np.ndarray, k_a: int, nb: int):
+        """Geometry of (satellite, window, row) pairs sorted by window, row; their cells; the
+        cells' budgets, SINR, noise and filter.  Returns the measured cells (sorted by cell
+        run, row) and their values."""
+        from . import cells as cellmod
+        from . import interference
+
         geo = self.geo
         t = k * self.period_s
         r_sat = geo.sky.positions_on_grid(sat, t, self.period_s)
         k0 = int(k.min())
-        pos, _, basis = self.site.teme(np.arange(k0, int(k.max()) + 1) * self.period_s, geo.earth)
-        pos, basis = pos[k - k0], basis[k - k0]
+        k_hi = int(k.max())
+        pos_rows, _, basis_rows = self.site.teme(np.arange(k0, k_hi + 1) * self.period_s, geo.earth)
+        pos, basis = pos_rows[k - k0], basis_rows[k - k0]
         lk = look(r_sat, None, pos, None, basis)
         off = linkmod.off_boresight_deg(r_sat, pos)
         cosg = np.einsum("ij,ij->i", r_sat, pos) / (np.linalg.norm(r_sat, axis=1) *
                                                      np.linalg.norm(pos, axis=1))
         nadir_km = np.arccos(np.clip(cosg, -1.0, 1.0)) * MEAN_EARTH_RADIUS_KM
-        bud = self.model.budget(lk["range_km"], lk["elevation_deg"], off)
-        rsrp = bud["rsrp_dbm"].copy()
-        snr = bud["snr_db"].copy()
         seg_start = np.ones(win.size, bool)
         seg_start[1:] = win[1:] != win[:-1]
         seg_w = win[seg_start]
         key = self.site.index * 1_000_003 + sat   # the terminal's scenario index: splits of
         # a run across workers must not change its draws
+        # path effects of each pair (shared by all beams of the satellite)
         std = float(self.lp["shadowing_std_db"])
+        shadow = None
         if std > 0:
             z = noise.normal(self.seed, _SHADOW, key, k)
             x, last = linkmod.ar1_blocks(z, seg_start, self.rho_shadow,
                                          self._carried(self._carry_shadow, seg_w))
             self._store(self._carry_shadow, seg_w, last)
-            rsrp += std * x
-            snr += std * x
+            shadow = std * x
+        nlos = None
         if self.nlos_db is not None:
             z = noise.normal(self.site.los.seed, _NLOS, key, k)
             x, last = linkmod.ar1_blocks(z, seg_start, self.rho_nlos,
                                          self._carried(self._carry_nlos, seg_w))
             self._store(self._carry_nlos, seg_w, last)
-            nlos = ~los_mod.is_los(self.site.los.environment, lk["elevation_deg"], x)
-            rsrp -= np.where(nlos, self.nlos_db, 0.0)
-            snr -= np.where(nlos, self.nlos_db, 0.0)
-        meas = rsrp
+            nlos = np.where(~los_mod.is_los(self.site.los.environment, lk["elevation_deg"], x),
+                            self.nlos_db, 0.0)
+        # the cells of each pair, per constellation table
+        f_ghz = self.model.frequency_ghz
+        table = self.sat_table[sat]
+        parts = []
+        v_sat = None
+        for ti, lay in enumerate(self.layouts):
+            own = np.flatnonzero(table == ti) if len(self.layouts) > 1 else np.arange(sat.size)
+            if own.size == 0:
+                continue
+            if lay is None or lay.single:
+                from .beams import BeamLayout
+                lay = lay or BeamLayout("single", 0, 1.0, float(self.lp["sat_aperture_m"]),
+                                        float(self.lp["sat_max_gain_dbi"]), 1, 1.0,
+                                        "earth-moving", None, 0.0, None, None)
+                parts.append(cellmod.expand_single(own, sat[own], off[own], nadir_km[own], lay,
+                                                   f_ghz, self.lp["sat_beam_pointing"]))
+            elif not lay.earth_fixed:
+                if v_sat is None:
+                    v_sat = geo.sky.velocities_on_grid(sat, t, self.period_s)
+                parts.append(cellmod.expand_moving(own, sat[own], r_sat[own], v_sat[own],
+                                                   pos[own], lay, f_ghz))
+            else:
+                parts.append(self._ground(own, sat, k, t, r_sat, pos, k0, k_hi, ti))
+        cs = cellmod.CellSamples.concat(parts)
+        bud = self.model.budget(lk["range_km"][cs.pair], lk["elevation_deg"][cs.pair], None,
+                                gain_dbi=cs.gain_dbi, max_gain_dbi=cs.max_gain_dbi)
+        rsrp = bud["rsrp_dbm"].copy()
+        snr = bud["snr_db"].copy()
+        if shadow is not None:
+            rsrp += shadow[cs.pair]
+            snr += shadow[cs.pair]
+        if nlos is not None:
+            rsrp -= nlos[cs.pair]
+            snr -= nlos[cs.pair]
+        row = k[cs.pair] - k_a
+        sinr = interference.sinr_db(snr, row, cs.colour, cs.load, nb, self.interference)
+        # measured cells only, ordered by cell run (window, cell), then row
+        m = np.flatnonzero(cs.measured)
+        order = m[np.lexsort((k[cs.pair[m]], cs.cell[m], win[cs.pair[m]]))]
+        pr = cs.pair[order]
+        cell, beam = cs.cell[order], cs.beam[order]
+        kk = k[pr]
+        new_run = np.ones(order.size, bool)
+        new_run[1:] = (win[pr][1:] != win[pr][:-1]) | (cell[1:] != cell[:-1]) | (kk[1:] != kk[:-1] + 1)
+        meas = rsrp[order]
         mstd = float(self.lp["measurement_noise_db"])
         if mstd > 0:
-            meas = rsrp + mstd * noise.normal(self.seed, _MEASURE, key, k)
-        filt, last = linkmod.l3_filter_blocks(meas, seg_start, self.alpha,
-                                              self._carried(self._carry_filter, seg_w))
-        self._store(self._carry_filter, seg_w, last)
-        return {"rsrp_dbm": filt, "snr_db": snr, "elevation_deg": lk["elevation_deg"],
-                "azimuth_deg": lk["azimuth_deg"], "range_km": lk["range_km"],
-                "nadir_km": nadir_km, "range_rate_km_s": self._range_rate(lk["range_km"], seg_start)}
+            ground = cellmod.is_ground(cell)
+            stream = np.where(ground, _MEASURE_GROUND, _MEASURE + beam * 7919)
+            mkey = np.where(ground, key[pr] * 7919 + (cell - cellmod.GROUND_BASE), key[pr])
+            meas = rsrp[order] + mstd * _normal_streams(self.seed, stream, mkey, kk)
+        runs = {"win": win[pr][new_run], "cell": cell[new_run], "first": kk[new_run],
+                "last": np.append(kk[np.flatnonzero(new_run)[1:] - 1], kk[-1:]) if kk.size
+                else kk}
+        self.samples += order.size
+        return (runs, new_run), {
+            "pair_sat": sat[pr], "pair_win": win[pr], "row": kk - k_a, "k": kk, "cell": cell,
+            "beam": beam, "raw": meas, "snr_db": snr[order], "sinr_db": sinr[order],
+            "elevation_deg": lk["elevation_deg"][pr], "azimuth_deg": lk["azimuth_deg"][pr],
+            "range_km": lk["range_km"][pr], "nadir_km": nadir_km[pr], "ref_km": cs.ref_km[order],
+            "range_rate_km_s": self._range_rate(lk["range_km"], seg_start)[pr]}
+
+    def _ground(self, own, sat, k, t, r_sat, pos, k0, k_hi, ti):
+        """Earth-fixed cells of table ``ti`` for the pairs ``own``."""
+        from . import cells as cellmod
+
+        rows_t = np.arange(k0, k_hi + 1) * self.period_s
+        lat, lon, _ = self.site.motion.geodetic(rows_t)
+        near = {ti: self.ground.near(ti, lat, lon)}
+        gmst = self.geo.earth.gmst(t[own])
+        return cellmod.expand_ground(own, sat[own], k[own] - k0, t[own], r_sat[own], pos[own],
+                                     near, self.ground, gmst, self.model.frequency_ghz, lat, lon)
+
+    def _lay_out(self, cells, vals, k_a: int, k_b: int) -> dict[str, np.ndarray] | None:
+        """Filter along cell runs, give runs ids and columns, fill the block matrix."""
+        runs, new_run = cells
+        if vals["k"].size == 0:
+            return None
+        ids, cols = self._runs.assign(runs["win"], runs["cell"], runs["first"], runs["last"],
+                                      k_a, k_b)
+        run_of = np.cumsum(new_run) - 1
+        # a run continuing from the previous block carries its filter state in (same run id)
+        filt, last = linkmod.l3_filter_blocks(vals["raw"], new_run, self.alpha,
+                                              self._carried(self._carry_filter, ids))
+        self._store(self._carry_filter, ids, last)
+        nb = k_b - k_a
+        width = int(cols.max()) + 1
+        blk = {f: np.full((nb, width), -1 if f in INT_FIELDS else np.nan,
+                          dtype=np.int64 if f in INT_FIELDS else float) for f in FIELDS}
+        r, c = vals["row"], cols[run_of]
+        idx = self.geo.index[self.k_site]
+        blk["sat"][r, c] = vals["pair_sat"]
+        blk["win"][r, c] = ids[run_of]
+        blk["cell"][r, c] = vals["cell"]
+        blk["beam"][r, c] = vals["beam"]
+        blk["start_s"][r, c] = idx.start_s[vals["pair_win"]]
+        blk["end_s"][r, c] = idx.end_s[vals["pair_win"]]
+        blk["rsrp_dbm"][r, c] = filt
+        blk["rsrp_raw_dbm"][r, c] = vals["raw"]
+        for f in ("snr_db", "sinr_db", "elevation_deg", "azimuth_deg", "range_km", "nadir_km",
+                  "ref_km", "range_rate_km_s"):
+            blk[f][r, c] = vals[f]
+        return blk
 
     def _range_rate(self, rng: np.ndarray, seg_start: np.ndarray) -> np.ndarray:
         """Range rate by central differences along each window's rows (one-sided at its ends
@@ -301,3 +484,13 @@ class MeasurementStream:
     def _store(store: dict[int, float], seg_w: np.ndarray, last: np.ndarray) -> None:
         # only windows still open matter next block, but storing all is cheap and simple
         store.update(zip(seg_w.tolist(), last.tolist()))
+
+
+def _normal_streams(seed: int, stream: np.ndarray, key: np.ndarray, index: np.ndarray
+                    ) -> np.ndarray:
+    """Standard normal draws whose stream varies per sample (one call per distinct stream)."""
+    out = np.empty(index.shape)
+    for s in np.unique(stream).tolist():
+        m = stream == s
+        out[m] = noise.normal(seed, int(s), key[m], index[m])
+    return out
