@@ -99,8 +99,12 @@ def passes(config: Path, out: Path) -> None:
 @click.option("--check/--no-check", default=False, help="Verify accounting invariants.")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1),
               help="Processes to split the terminals over (results do not depend on it).")
+@click.option("--trace", "trace", default=None, metavar="TERMINAL",
+              help="Also write trace.parquet: the terminal's measurements of its serving cell "
+                   "and strongest neighbours at every instant, per policy.")
 @guarded
-def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None:
+def run(config: Path, out: Path, kernel: str, check: bool, workers: int,
+        trace: str | None) -> None:
     """Run every terminal under every policy; write tables to a folder."""
     from .io.config import load_scenario
     from .run import execute, summary_text
@@ -110,8 +114,11 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
+    if trace is not None and trace not in scen.terminal_names():
+        raise InputError(str(config), "--trace", trace,
+                         "no such terminal (known: " + ", ".join(scen.terminal_names()) + ")")
     tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
-                     progress=Progress("simulated hours", None).hours)
+                     progress=Progress("simulated hours", None).hours, trace=trace)
     click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
     click.echo(f"tables -> {out}")
 

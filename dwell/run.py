@@ -132,11 +132,20 @@ def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
 
 def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: str = "fast",
                check: bool = False, progress: Callable[[float, float], None] | None = None,
-               warn: Callable[[str], None] | None = None) -> RunTables:
-    """Run (some of) a scenario's terminals and build their tables."""
+               warn: Callable[[str], None] | None = None, trace: str | None = None) -> RunTables:
+    """Run (some of) a scenario's terminals and build their tables (with the measurement
+    trace of terminal ``trace`` when it is among them)."""
     results, geo = run_scenario(scen, kernel=kernel, terminals=terminals, progress=progress,
                                 warn=warn)
     tables = build_tables(scen, results, geo, check=check)
+    if trace is not None:
+        mine = [r for r in results if r.terminal == trace]
+        if mine:
+            from .analysis.trace import trace_frame
+            names, shells = scen.constellation.names, [c["name"] for c in scen.constellations]
+            tables.frames["trace"] = trace_frame(
+                scen, geo, mine[0].site_index, mine, lambda c: cell_names(c, names, shells),
+                float(scen.scenario["measurement_period_s"]))
     geo.close()
     return tables
 
@@ -145,16 +154,17 @@ _SHARED: dict = {}   # the scenario a forked worker inherits (scenario objects h
 
 
 def _worker(args) -> tuple[dict[str, pd.DataFrame], list[str]]:
-    terminals, kernel, check = args
+    terminals, kernel, check, trace = args
     messages: list[str] = []      # handed back for the parent to print: a worker's stderr
     frames = run_tables(_SHARED["scen"], terminals, kernel=kernel, check=check,  # may be a copy
-                        warn=messages.append).frames
+                        warn=messages.append, trace=trace).frames
     return frames, messages
 
 
 def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
             progress: Callable[[float, float], None] | None = None,
-            warn: Callable[[str], None] | None = None, workers: int = 1) -> RunTables:
+            warn: Callable[[str], None] | None = None, workers: int = 1,
+            trace: str | None = None) -> RunTables:
     """Run a scenario and write its folder atomically.
 
     With ``workers`` > 1 the terminals are split into contiguous groups run by forked worker
@@ -164,7 +174,8 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     n = len(scen.terminals)
     workers = max(1, min(workers, n))
     if workers == 1:
-        tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn)
+        tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn,
+                            trace=trace)
     else:
         import multiprocessing as mp
         bounds = np.linspace(0, n, workers + 1).round().astype(int)
@@ -172,7 +183,7 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
         _SHARED["scen"] = scen
         try:
             with mp.get_context("fork").Pool(len(groups)) as pool:
-                parts = pool.map(_worker, [(g, kernel, check) for g in groups])
+                parts = pool.map(_worker, [(g, kernel, check, trace) for g in groups])
         finally:
             _SHARED.clear()
         seen: set[str] = set()
@@ -183,6 +194,9 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
                 seen.add(msg)
         frames = {name: pd.concat([p[0][name] for p in parts], ignore_index=True)
                   for name in TABLES}
+        for part, _ in parts:               # the trace comes from the worker holding it
+            if "trace" in part:
+                frames["trace"] = part["trace"]
         tables = RunTables(frames, [])
     write_run_folder(scen, tables, out_dir)
     return tables
@@ -190,7 +204,7 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
 
 def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> None:
     with atomic_dir(out_dir) as tmp:
-        for name in TABLES:
+        for name in TABLES + (("trace",) if "trace" in tables.frames else ()):
             write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
         (tmp / "run.toml").write_text(run_toml(scen, out_dir))
         (tmp / "summary.txt").write_text(summary_text(scen, tables.frames["summary"]))

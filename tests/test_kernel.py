@@ -76,12 +76,27 @@ POLICIES = {
     "cho-d1a3": {"rule": "cho", "condition": "d1+a3", "target": "visibility", "min_dwell_s": 10.0},
 }
 
-# configurations of the fast-vs-naive comparison: (period, terminals, policies)
+# multi-beam shells: earth-moving hex beams (S-band spot beams of TR 38.821 size: 2 m aperture,
+# 30 dBi) and earth-fixed cells; the kernels must agree on cells too
+BEAM = {"aperture_m": 2.0, "max_gain_dbi": 30.0, "reuse": 3}
+HEX_SHELL = {**SHELL, "beams": {"layout": "hex", "rings": 9, "spacing_deg": 4.4, **BEAM}}
+FIXED_SHELL = {**SHELL, "beams": {"layout": "hex", "cell_mode": "earth-fixed",
+                                  "cell_spacing_km": 60.0, **BEAM}}
+BEAM_LINK = {**NOISY, "eirp_density_dbw_mhz": 34.0, "shadowing_std_db": 2.0,
+             "measurement_noise_db": 1.0}
+BEAM_POLICIES = ["a3-default", "a3-ttt0", "a3-rlf", "rsrp3", "elev5", "ul-elev", "cho-d1a3",
+                 "cho-t1"]
+
+# configurations of the fast-vs-naive comparison: (period, terminals, policies[, constellation,
+# link, duration])
 CONFIGS = {
     "p1": (1.0, list(TERMINALS), list(POLICIES)),
     "p05": (0.5, ["open", "weak", "mbb"],
             ["a3-default", "a3-ttt0", "a3-guard", "a3-rlf", "rsrp3", "elev5", "ul-elev",
              "cho-t1", "cho-d1a3"]),
+    "hex": (1.0, ["open", "mbb"], BEAM_POLICIES + ["elev0", "longest"], HEX_SHELL, BEAM_LINK,
+            1800.0),
+    "fixed": (1.0, ["open", "weak"], BEAM_POLICIES, FIXED_SHELL, BEAM_LINK, 1800.0),
 }
 
 
@@ -99,9 +114,10 @@ def make_scenario(terminals: dict[str, dict], policies: dict[str, dict], *, peri
 
 @functools.lru_cache(maxsize=None)
 def config(name: str) -> tuple[Scenario, Geometry]:
-    period, terms, pols = CONFIGS[name]
+    period, terms, pols, *rest = CONFIGS[name]
+    extra = dict(zip(("constellation", "link", "duration_s"), rest))
     scen = make_scenario({t: TERMINALS[t] for t in terms}, {p: POLICIES[p] for p in pols},
-                         period_s=period)
+                         period_s=period, **extra)
     return scen, Geometry(scen)
 
 
@@ -116,7 +132,7 @@ def run_one(name: str, terminal: str, policy: str, kernel: str) -> RunResult:
 
 
 def _cases():
-    for name, (_, terms, pols) in CONFIGS.items():
+    for name, (_, terms, pols, *_) in CONFIGS.items():
         for t in terms:
             for p in pols:
                 yield pytest.param(name, t, p, id=f"{name}-{t}-{p}")

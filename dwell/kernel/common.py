@@ -15,9 +15,12 @@ Execution model of one terminal under one policy (both kernels implement exactly
 - Next event of a link: the earliest of the policy's decision, the loss of s for ephemeris-aware
   policies (the end of each of s's windows, if a satellite is in view then), a radio link
   failure, and the end of the scenario; at equal times in that order.
+- A link's policy decisions come strictly after the decision that opened it (a zero-length
+  break must not let the next decision fall at the same instant).
 - Handover at t to cell c' of satellite n.  Within one satellite (n = s, a beam or cell
   change): no re-pointing; the link to c ends at t and the new one starts after a break of
-  ``interruption_s`` (``mbb_interruption_s`` with two or more apertures).  To another
+  ``interruption_s`` (the radio handover's; a second aperture does not help within one
+  satellite).  To another
   satellite, break-before-make (one aperture): the link to s ends at t, the terminal is
   switching for ``interruption_s`` + re-pointing time, then the link to n starts.
   Make-before-break (two or more apertures): a free aperture re-points while s still serves;
@@ -34,11 +37,56 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..policies.base import Decision, Policy, Rows, strongest_of_satellite
-from ..radio.cells import BEAM_STRIDE, is_ground
+from ..radio.cells import BEAM_STRIDE, ground_key, is_ground
 from ..radio.hardware import Hardware
 from ..radio.measure import MeasurementStream
 
-PRIORITY = {"decision": 0, "loss": 1, "rlf": 2, "end": 3}
+PRIORITY = {"decision": 0, "switch": 1, "loss": 2, "rlf": 3, "end": 4}
+
+
+def cell_switch(rows: Rows, link_sat: int, cell: int, horizon_s: float) -> Decision | None:
+    """The scheduled switch of an earth-fixed serving cell to its next satellite.
+
+    The network knows when the satellite serving a ground cell hands it to the next one (the
+    cell's serving schedule): at that instant the terminal is handed over to the same ground
+    cell on the new satellite, if it measures it at the first row at or after the switch and
+    the new satellite is in view at the switch.  None when the serving cell is not earth-fixed,
+    its service ends with its satellite's window, the instant lies beyond ``horizon_s``, or the
+    next server cannot be measured (the link is then lost, as any other)."""
+    if not is_ground(cell):
+        return None
+    col = rows.column_of_cell(cell)
+    seen = np.flatnonzero(col >= 0)
+    if seen.size == 0:
+        return None
+    r0 = int(seen[0])
+    t_sw = switch_start(rows, r0, int(col[r0]), cell)
+    if not np.isfinite(t_sw) or t_sw > horizon_s:
+        return None
+    r = int(np.searchsorted(rows.t_s, t_sw, side="left"))
+    if r >= rows.n:
+        return None
+    return switch_target(rows, r, link_sat, cell, t_sw)
+
+
+def switch_start(rows: Rows, r: int, col: int, cell: int) -> float:
+    """The instant a serving earth-fixed cell measured at (r, col) switches satellite, or inf
+    when its service ends with the satellite's window (or the cell is not earth-fixed)."""
+    if not is_ground(cell):
+        return math.inf
+    t_sw = float(rows.cell_end_s[r, col])
+    return t_sw if np.isfinite(t_sw) and t_sw < float(rows.end_s[r, col]) else math.inf
+
+
+def switch_target(rows: Rows, r: int, link_sat: int, cell: int, t_sw: float) -> Decision | None:
+    """The same ground cell on another satellite, measured at row r and in view at t_sw."""
+    same = (ground_key(rows.cell[r]) == ground_key(cell)) & (rows.sat[r] >= 0) & \
+        (rows.sat[r] != link_sat) & (rows.start_s[r] <= t_sw)
+    hit = np.flatnonzero(same)
+    if hit.size == 0:
+        return None
+    c = int(hit[0])
+    return Decision(t_sw, int(rows.sat[r, c]), "cell-switch", rows.k0 + r, int(rows.cell[r, c]))
 
 
 @dataclass
@@ -225,9 +273,12 @@ class Execution:
         self.link_start = 0.0
         self.link_reason = ""
         self.next_cell = (-1, -1, -1)         # (satellite, cell, beam) a handover goes to
+        self.decided_at = -math.inf            # the decision that opened the current link
 
     def open_link(self, sat: int, t_s: float, reason: str, cell: int = -1, beam: int = 0) -> None:
         self.link_sat, self.link_start, self.link_reason = sat, t_s, reason
+        if reason != "handover":
+            self.decided_at = -math.inf
         self.link_cell = cell if cell >= 0 else sat * BEAM_STRIDE
         self.link_beam = beam if cell >= 0 else 0
 
@@ -266,11 +317,11 @@ class Execution:
             to_beam = -1 if is_ground(to_cell) else int(to_cell % BEAM_STRIDE)
         intra = d.target == self.link_sat
         az, el = rows.azimuth_deg, rows.elevation_deg
-        if intra:
+        self.decided_at = d.time_s
+        if intra:       # an RRC handover between cells of one satellite: nothing re-points
             slew, repoint = 0.0, 0.0
             ap = self.aperture
-            old_end = d.time_s
-            brk = hw.mbb_interruption_s if hw.make_before_break else hw.interruption_s
+            old_end, brk = d.time_s, hw.interruption_s
         else:
             old = (float(az[r, cf]), float(el[r, cf])) if cf >= 0 else \
                 pointing(rows, r, self.link_sat)

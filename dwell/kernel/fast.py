@@ -16,7 +16,7 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy
 from ..radio.measure import row_at_or_after
-from .common import PRIORITY, Execution, KernelRun, first_rlf_s, monitoring
+from .common import PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s, monitoring
 
 FIRST_ROWS = 64
 
@@ -109,11 +109,15 @@ class FastRun(KernelRun):
             release = t_c + s.min_dwell_s
             if s.min_dwell_s > 0 and oos.any():
                 release = min(release, float(rows.t_s[int(np.argmax(oos))]))
-            link = Link(sat, t_c, release, 0, e0, cell=cell)
+            link = Link(sat, t_c, release, 1 if rows.t_s[0] <= ex.decided_at else 0, e0,
+                        cell=cell)
             events = []
             d = self.policy.scan(rows, link)
             if d is not None:
                 events.append((d.time_s, PRIORITY["decision"], "decision", d))
+            sw = cell_switch(rows, sat, cell, horizon)
+            if sw is not None:
+                events.append((sw.time_s, PRIORITY["switch"], "decision", sw))
             if self.policy.loss_aware:
                 loss = self._loss(rows, rows.column_of(sat), sat, e0, horizon)
                 if loss is not None:

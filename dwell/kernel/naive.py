@@ -17,7 +17,7 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy, Rows
 from ..radio.measure import row_at_or_after
-from .common import PRIORITY, Execution, KernelRun
+from .common import PRIORITY, Execution, KernelRun, switch_start, switch_target
 
 
 class NaiveRun(KernelRun):
@@ -98,6 +98,7 @@ class NaiveRun(KernelRun):
         oc = ic = 0
         expiry = None
         weak_from = len(ex.rec.weak)
+        t_sw = None                               # scheduled switch of an earth-fixed cell
         sinr_seen: list[tuple[float, float]] = []
         k = kc
         while True:
@@ -146,7 +147,7 @@ class NaiveRun(KernelRun):
                 losses.append(float(rows.end_s[r, sat_col]))
             t_next = (k + 1) * dt
             events = []
-            d = self.policy.step(rows, r, link)
+            d = self.policy.step(rows, r, link) if t_k > ex.decided_at else None
             if d is not None and d.time_s < t_next:
                 events.append((d.time_s, PRIORITY["decision"], "decision", d))
             if self.policy.loss_aware:
@@ -158,8 +159,17 @@ class NaiveRun(KernelRun):
                     c = self.policy.select(rows, re, e, exclude=sat)
                     if c >= 0:
                         events.append((e, PRIORITY["loss"], "loss",
-                                       Decision(e, int(rows.sat[re, c]), "loss", rows.k0 + re)))
+                                       Decision(e, int(rows.sat[re, c]), "loss", rows.k0 + re,
+                                                int(rows.cell[re, c]))))
                         break
+            if t_sw is None and measured:
+                t_sw = switch_start(rows, r, col, cell)
+            if t_sw is not None and t_k <= t_sw < t_next and t_sw < s.duration_s:
+                rows2, r2 = self._rows_at(row_at_or_after(t_sw, dt))
+                sw = switch_target(rows2, r2, sat, cell, t_sw)
+                rows, r = self._rows_at(k)
+                if sw is not None:
+                    events.append((t_sw, PRIORITY["switch"], "decision", sw))
             if expiry is not None and expiry < t_next:
                 events.append((expiry, PRIORITY["rlf"], "rlf", None))
             if t_next >= s.duration_s or k + 1 >= self.stream.K:

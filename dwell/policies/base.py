@@ -85,6 +85,7 @@ class Rows:
     sinr_db: np.ndarray | None = None       # (R, W) instantaneous SINR (default: the SNR)
     rsrp_raw_dbm: np.ndarray | None = None  # (R, W) RSRP before the layer-3 filter
     ref_km: np.ndarray | None = None        # (R, W) distance to the cell's reference location
+    cell_end_s: np.ndarray | None = None    # (R, W) end of the cell's service by its satellite
     _cols: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self):
@@ -99,6 +100,8 @@ class Rows:
             self.rsrp_raw_dbm = self.rsrp_dbm
         if self.ref_km is None:
             self.ref_km = self.nadir_km
+        if self.cell_end_s is None:
+            self.cell_end_s = self.end_s
 
     @property
     def n(self) -> int:
@@ -141,7 +144,7 @@ class Rows:
 
 _ROW_ARRAYS = ("sat", "win", "rsrp_dbm", "snr_db", "elevation_deg", "azimuth_deg", "range_km",
                "nadir_km", "start_s", "end_s", "range_rate_km_s", "cell", "beam", "sinr_db",
-               "rsrp_raw_dbm", "ref_km")
+               "rsrp_raw_dbm", "ref_km", "cell_end_s")
 
 
 @dataclass

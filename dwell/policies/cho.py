@@ -6,6 +6,7 @@ Conditions (``condition``), combinable with an A3 entering condition (``"t1+a3"`
 - ``t1``: time-based.  The network knows from ephemeris when the serving satellite leaves
   (the end of its visibility window ``e``); the condition holds after ``e - t1_lead_s`` and for
   ``t1_duration_s`` (t1-Threshold and duration of event T1: Thresh1 < t <= Thresh1 + duration).
+  Its candidates are cells of other satellites.
 - ``d1``: distance-based: distance from the terminal to the serving reference location above
   ``d1_serving_km`` + hysteresis and to the candidate's below ``d1_candidate_km`` - hysteresis
   (distanceThreshFromReference1/2, hysteresisLocation of event D1).  The reference location of a
@@ -72,6 +73,8 @@ class ConditionalHandover(TimeToTriggerRule):
         rr = np.arange(rows.n)
         has = col >= 0
         cond = (rows.sat >= 0) & (rows.cell != link.cell)
+        if "t1" in self.parts:      # T1 answers the serving satellite's departure: other satellites
+            cond &= rows.sat != link.sat
         cond &= (rows.t_s[:, None] - rows.start_s) >= p["preparation_s"]
         cond &= (rows.t_s >= link.release_s)[:, None]
         cond[:link.r_start] = False
@@ -123,6 +126,8 @@ class ConditionalHandover(TimeToTriggerRule):
         seen, fired = set(), []
         for jj in range(rows.sat.shape[1]):
             if rows.sat[r, jj] < 0 or int(rows.cell[r, jj]) == link.cell:
+                continue
+            if "t1" in self.parts and rows.sat[r, jj] == link.sat:
                 continue
             w = int(rows.win[r, jj])
             seen.add(w)

@@ -16,7 +16,8 @@ the usual cellular cluster sizes (``D = R sqrt(3 N)`` with R the cell radius; Ra
 Wireless Communications, 2nd ed., section 3.2).
 
 Finding a direction's beams costs O(1): the nearest lattice point by hexagonal rounding, then
-its fixed neighbourhood (19 points within two rings) as candidates; no search over beams.
+its fixed neighbourhood (19 points within two rings, 37 for reuse 7) as candidates; no search
+over beams.
 """
 
 from __future__ import annotations
@@ -74,12 +75,16 @@ KEYS: dict[str, Field] = {
                                  "centre of the earth-fixed cell lattice"),
 }
 
-# axial offsets of the hexagonal neighbourhood within two rings, nearest first
-_NEAR = [(0, 0), (1, 0), (0, 1), (-1, 1), (-1, 0), (0, -1), (1, -1),
-         (2, 0), (1, 1), (0, 2), (-1, 2), (-2, 2), (-2, 1), (-2, 0), (-1, -1), (0, -2),
-         (1, -2), (2, -2), (2, -1)]
-NEIGHBOURHOOD_Q = np.array([q for q, _ in _NEAR], dtype=np.int64)
-NEIGHBOURHOOD_R = np.array([r for _, r in _NEAR], dtype=np.int64)
+# candidate beams around a direction's nearest lattice point: every co-channel beam within
+# the nearest co-channel distance sqrt(N) spacings must be among them, so two rings (19 points)
+# for N = 1, 3, 4 and three rings (37) for N = 7; beams further off lie in the far sidelobes
+# (below -26 dB when neighbours are spaced by the -3 dB width)
+NEIGHBOURHOOD_RINGS = {1: 2, 3: 2, 4: 2, 7: 3}
+
+
+def neighbourhood(rings: int) -> tuple[np.ndarray, np.ndarray]:
+    """Axial offsets of the lattice points within ``rings`` of a point, ring by ring."""
+    return _beam_axial(rings)
 
 
 def hex_distance(q: np.ndarray, r: np.ndarray) -> np.ndarray:
@@ -128,14 +133,15 @@ def lattice_xy(q: np.ndarray, r: np.ndarray, spacing: float) -> tuple[np.ndarray
     return spacing * (q + r / 2.0), spacing * r * SQRT3 / 2.0
 
 
-def half_power_beamwidth_deg(aperture_m: float, frequency_ghz: float) -> float:
+def beamwidth_3db_deg(aperture_m: float, frequency_ghz: float) -> float:
     """Full -3 dB width of the TR 38.811 pattern (uniform circular aperture): the x where
-    (2 J1(x)/x)^2 = 1/2 is 1.6163, so theta_3dB = 2 asin(1.6163 / (k a)); about 58.9 lambda/D
-    for large apertures (antenna handbooks)."""
+    (2 J1(x)/x)^2 = 10^-0.3 is 1.6137, so theta_3dB = 2 asin(1.6137 / (k a)).  This gives the
+    3 dB beamwidths TR 38.821 tabulates (4.4127 deg for a 2 m aperture at 2 GHz, 1.7647 deg for
+    0.5 m at 20 GHz); about 58.8 lambda/D for large apertures."""
     from scipy.optimize import brentq
     from scipy.special import j1
 
-    x3 = brentq(lambda x: (2.0 * j1(x) / x) ** 2 - 0.5, 1.0, 2.5)
+    x3 = brentq(lambda x: (2.0 * j1(x) / x) ** 2 - 10.0 ** -0.3, 1.0, 2.5)
     ka = 2.0 * math.pi * frequency_ghz * 1e9 / 299792458.0 * aperture_m / 2.0
     return 2.0 * math.degrees(math.asin(min(1.0, x3 / ka)))
 
@@ -193,6 +199,11 @@ class BeamLayout:
     @property
     def n_beams(self) -> int:
         return 1 if self.single else 1 + 3 * self.rings * (self.rings + 1)
+
+    @property
+    def candidate_offsets(self) -> tuple[np.ndarray, np.ndarray]:
+        """Axial offsets of the beams that may matter around a direction's nearest beam."""
+        return neighbourhood(NEIGHBOURHOOD_RINGS[self.reuse])
 
     @property
     def spacing_uv(self) -> float:
@@ -280,7 +291,7 @@ def check_table(raw: Any, link_params: dict[str, Any], source: str, where: str
     if p["max_gain_dbi"] is None:
         p["max_gain_dbi"] = float(link_params["sat_max_gain_dbi"])
     if p["spacing_deg"] is None and p["layout"] == "hex":
-        width = half_power_beamwidth_deg(p["aperture_m"], float(link_params["frequency_ghz"]))
+        width = beamwidth_3db_deg(p["aperture_m"], float(link_params["frequency_ghz"]))
         if width >= 89.0:
             raise InputError(source, f"{where_b}.aperture_m", p["aperture_m"],
                              f"the beams are {width:.0f} deg wide at "

@@ -26,8 +26,10 @@ from ..radio.link import C_KM_S
 from . import beams as bm
 
 BEAM_STRIDE = 4096                   # > the most beams a layout can have (1261)
-GROUND_BASE = 1 << 60                # earth-fixed cell ids start here
-_AX = 1 << 20                        # axial offset (cells within +-2^20 lattice steps)
+GROUND_BASE = 1 << 62                # earth-fixed cell ids start here
+_AX = 1 << 15                        # axial offset (cells within +-2^15 lattice steps)
+_SAT_SHIFT, _TABLE_SHIFT = 32, 52    # ground ids: table | serving satellite | q | r
+_SAT_MASK = (1 << 20) - 1            # up to 2^20 satellites
 
 
 def moving_cell_id(sat: np.ndarray, beam: np.ndarray) -> np.ndarray:
@@ -35,10 +37,20 @@ def moving_cell_id(sat: np.ndarray, beam: np.ndarray) -> np.ndarray:
     return np.asarray(sat, dtype=np.int64) * BEAM_STRIDE + np.asarray(beam, dtype=np.int64)
 
 
-def ground_cell_id(table: int, q: np.ndarray, r: np.ndarray) -> np.ndarray:
-    """Id of earth-fixed cell (q, r) of constellation table ``table``."""
-    return (GROUND_BASE + (np.int64(table) << 42) + ((np.asarray(q, np.int64) + _AX) << 21)
-            + (np.asarray(r, np.int64) + _AX))
+def ground_cell_id(table: int, q: np.ndarray, r: np.ndarray, sat: np.ndarray) -> np.ndarray:
+    """Id of earth-fixed cell (q, r) of constellation table ``table`` as served by satellite
+    ``sat``: a cell served by another satellite (after a switch) is another cell for the
+    terminal, with the same ground cell (:func:`ground_key`)."""
+    return (GROUND_BASE + (np.int64(table) << _TABLE_SHIFT)
+            + ((np.asarray(sat, np.int64) & _SAT_MASK) << _SAT_SHIFT)
+            + ((np.asarray(q, np.int64) + _AX) << 16) + (np.asarray(r, np.int64) + _AX))
+
+
+def ground_key(cell: np.ndarray) -> np.ndarray:
+    """The ground cell of earth-fixed cell ids (the serving satellite cleared); other ids are
+    returned unchanged."""
+    cell = np.asarray(cell, dtype=np.int64)
+    return np.where(cell >= GROUND_BASE, cell & ~np.int64(_SAT_MASK << _SAT_SHIFT), cell)
 
 
 def is_ground(cell: np.ndarray) -> np.ndarray:
@@ -46,12 +58,14 @@ def is_ground(cell: np.ndarray) -> np.ndarray:
 
 
 def decode_ground(cell: int) -> tuple[int, int, int]:
+    """(table, q, r) of an earth-fixed cell id."""
     c = int(cell) - GROUND_BASE
-    return c >> 42, ((c >> 21) & ((1 << 21) - 1)) - _AX, (c & ((1 << 21) - 1)) - _AX
+    return c >> _TABLE_SHIFT, ((c >> 16) & 0xFFFF) - _AX, (c & 0xFFFF) - _AX
 
 
 def cell_names(cells: np.ndarray, sat_names: list[str], table_names: list[str]) -> np.ndarray:
-    """Readable names: ``SATELLITE/bN`` for beams, ``TABLE/c+Q+R`` for ground cells, '' for -1."""
+    """Readable names: ``SATELLITE/bN`` for beams, ``TABLE/c+Q+R`` for ground cells (the same
+    name whichever satellite serves it), '' for -1."""
     cells = np.asarray(cells, dtype=np.int64)
     out = np.full(cells.shape, "", dtype=object)
     uniq, inv = np.unique(cells, return_inverse=True)
@@ -96,11 +110,12 @@ class CellSamples:
     load: np.ndarray       # the beam's load (interference weight)
     measured: np.ndarray   # bool: close enough to be measured (else it only interferes)
     ref_km: np.ndarray     # terminal to the cell's reference location (NaN: none)
+    until_s: np.ndarray    # when this satellite stops serving the cell (NaN: with its window)
 
     @classmethod
     def empty(cls) -> "CellSamples":
         z, zi = np.zeros(0), np.zeros(0, dtype=np.int64)
-        return cls(zi, zi, zi, zi, z, z, z, np.zeros(0, bool), z)
+        return cls(zi, zi, zi, zi, z, z, z, np.zeros(0, bool), z, z)
 
     @classmethod
     def concat(cls, parts: list["CellSamples"]) -> "CellSamples":
@@ -121,7 +136,7 @@ def expand_single(pair: np.ndarray, sat: np.ndarray, off_nadir_deg: np.ndarray,
     n = pair.size
     return CellSamples(pair, moving_cell_id(sat, 0), np.zeros(n, np.int64),
                        np.zeros(n, np.int64), gain, np.full(n, layout.max_gain_dbi),
-                       np.full(n, layout.load), np.ones(n, bool), nadir_km)
+                       np.full(n, layout.load), np.ones(n, bool), nadir_km, np.full(n, np.nan))
 
 
 def expand_moving(pair: np.ndarray, sat: np.ndarray, r_sat: np.ndarray, v_sat: np.ndarray,
@@ -129,17 +144,18 @@ def expand_moving(pair: np.ndarray, sat: np.ndarray, r_sat: np.ndarray, v_sat: n
     """Earth-moving hex beams around the terminal's direction, for each sample.
 
     The terminal's direction (u, v) in the satellite frame is rounded to its nearest lattice
-    point; the 19 lattice points within two rings of it that are beams of the layout are the
-    candidates (their gains are the only non-negligible ones: beams further off lie beyond the
-    pattern's second sidelobe).  Those within ``MEASURE_RADIUS_SPACINGS`` of (u, v) are
+    point; the lattice points around it that are beams of the layout are the candidates
+    (:attr:`dwell.radio.beams.BeamLayout.candidate_offsets`: their gains are the only
+    non-negligible ones).  Those within ``MEASURE_RADIUS_SPACINGS`` of (u, v) are
     measured; all of them interfere on their colour.
     """
     frame = bm.satellite_frame(r_sat, v_sat)
     uvw = bm.direction_cosines(frame, r_sat, site_r)
     d = layout.spacing_uv
     q0, r0 = bm.nearest_axial(uvw[:, 0], uvw[:, 1], d)
-    q = q0[:, None] + bm.NEIGHBOURHOOD_Q[None, :]
-    r = r0[:, None] + bm.NEIGHBOURHOOD_R[None, :]
+    nq, nr = layout.candidate_offsets
+    q = q0[:, None] + nq[None, :]
+    r = r0[:, None] + nr[None, :]
     beam = layout.beam_index(q, r)
     ok = beam >= 0
     pi, ji = np.nonzero(ok)
@@ -172,7 +188,7 @@ def expand_moving(pair: np.ndarray, sat: np.ndarray, r_sat: np.ndarray, v_sat: n
     n = pi.size
     return CellSamples(pair[pi], moving_cell_id(sat[pi], beam[pi, ji]), beam[pi, ji],
                        layout.colour(qq, rr), gain, np.full(n, layout.max_gain_dbi),
-                       np.full(n, layout.load), measured, ref)
+                       np.full(n, layout.load), measured, ref, np.full(n, np.nan))
 
 
 # ---- earth-fixed cells -------------------------------------------------------------------------
@@ -229,11 +245,14 @@ class CellSchedule:
     end_s: np.ndarray
     sat: np.ndarray
 
-    def server(self, t_s: np.ndarray) -> np.ndarray:
-        i = np.searchsorted(self.start_s, t_s, side="right") - 1
-        ok = (i >= 0) & (t_s < self.end_s[np.maximum(i, 0)]) if self.start_s.size else \
-            np.zeros(np.shape(t_s), bool)
-        return np.where(ok, self.sat[np.maximum(i, 0)] if self.sat.size else -1, -1)
+    def server(self, t_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The serving satellite at each instant (-1: unserved) and when that service ends."""
+        t_s = np.asarray(t_s, dtype=float)
+        if self.start_s.size == 0:
+            return np.full(t_s.shape, -1, dtype=np.int64), np.full(t_s.shape, np.nan)
+        i = np.maximum(np.searchsorted(self.start_s, t_s, side="right") - 1, 0)
+        ok = (self.start_s[i] <= t_s) & (t_s < self.end_s[i])
+        return np.where(ok, self.sat[i], -1), np.where(ok, self.end_s[i], np.nan)
 
     def switches_between(self, a: float, b: float) -> np.ndarray:
         return self.start_s[(self.start_s > a) & (self.start_s < b)]
@@ -286,8 +305,9 @@ class GroundCells:
             lat, lon, _ = site.motion.geodetic(t)
             for ti in self.tables:
                 q0, r0 = self.lattice[ti].cell_of(lat, lon)
+                nq, nr = self.layouts[ti].candidate_offsets
                 for a, b in set(zip(q0.tolist(), r0.tolist())):
-                    for dq, dr in zip(bm.NEIGHBOURHOOD_Q.tolist(), bm.NEIGHBOURHOOD_R.tolist()):
+                    for dq, dr in zip(nq.tolist(), nr.tolist()):
                         keys.setdefault((ti, a + dq, b + dr), len(keys))
         self.keys = sorted(keys)                       # (table, q, r), a fixed order
         self.index = {k: j for j, k in enumerate(self.keys)}
@@ -321,15 +341,16 @@ class GroundCells:
 
     def near(self, table: int, lat_deg: np.ndarray, lon_deg: np.ndarray
              ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """For each position: the 19 cells within two rings of its own cell, as plan indices
+        """For each position: the cells around its own cell (two rings, three for reuse 7), as plan indices
         (-1 where the plan lacks a cell), their axial (q, r), and whether each is measured
         (centre within ``MEASURE_RADIUS_SPACINGS`` spacings of the position)."""
         lat_deg, lon_deg = np.atleast_1d(lat_deg), np.atleast_1d(lon_deg)
         lat_t = self.lattice[table]
         x, y = lat_t.to_plane(lat_deg, lon_deg)
         q0, r0 = bm.nearest_axial(x, y, lat_t.spacing_km)
-        q = q0[:, None] + bm.NEIGHBOURHOOD_Q[None, :]
-        r = r0[:, None] + bm.NEIGHBOURHOOD_R[None, :]
+        nq, nr = self.layouts[table].candidate_offsets
+        q = q0[:, None] + nq[None, :]
+        r = r0[:, None] + nr[None, :]
         idx = np.array([self.index.get((table, a, b), -1) for a, b in
                         zip(q.ravel().tolist(), r.ravel().tolist())], dtype=np.int64)
         cx, cy = bm.lattice_xy(q, r, lat_t.spacing_km)
@@ -367,10 +388,11 @@ def expand_ground(pair: np.ndarray, sat: np.ndarray, k_row: np.ndarray, t_s: np.
         p_own = np.flatnonzero(own)
         ci = idx[k_row[p_own]]                                      # (P', 19)
         served = np.full(ci.shape, -1, dtype=np.int64)
+        until = np.full(ci.shape, np.nan)
         for c in np.unique(ci[ci >= 0]).tolist():
             m = ci == c
             rows_m = np.nonzero(m)[0]
-            served[m] = cells.schedules[c].server(t_s[p_own[rows_m]])
+            served[m], until[m] = cells.schedules[c].server(t_s[p_own[rows_m]])
         hit = served == sat[p_own][:, None]
         pi, ji = np.nonzero(hit)
         if pi.size == 0:
@@ -389,9 +411,10 @@ def expand_ground(pair: np.ndarray, sat: np.ndarray, k_row: np.ndarray, t_s: np.
         lat_c, lon_c = cells.lattice[ti].centre(qq, rr)
         ref = _great_circle_km(site_lat_deg[k_row[pp]], site_lon_deg[k_row[pp]], lat_c, lon_c)
         n = pp.size
-        parts.append(CellSamples(pair[pp], ground_cell_id(ti, qq, rr), np.full(n, -1, np.int64),
-                                 lay.colour(qq, rr), gain, np.full(n, lay.max_gain_dbi),
-                                 np.full(n, lay.load), measured[k_row[pp], ji], ref))
+        parts.append(CellSamples(pair[pp], ground_cell_id(ti, qq, rr, sat[pp]),
+                                 np.full(n, -1, np.int64), lay.colour(qq, rr), gain,
+                                 np.full(n, lay.max_gain_dbi), np.full(n, lay.load),
+                                 measured[k_row[pp], ji], ref, until[pi, ji]))
     return CellSamples.concat(parts)
 
 
@@ -403,4 +426,5 @@ def _great_circle_km(lat1, lon1, lat2, lon2) -> np.ndarray:
 
 
 __all__ = ["BEAM_STRIDE", "CellSamples", "GroundCells", "GroundLattice", "cell_names",
-           "expand_ground", "expand_moving", "expand_single", "ground_cell_id", "moving_cell_id"]
+           "expand_ground", "expand_moving", "expand_single", "ground_cell_id", "ground_key",
+           "moving_cell_id"]

@@ -5,8 +5,11 @@ Keys of the ``[[terminal]]`` table added here (a contract):
 - ``apertures`` (1): with two or more, handovers are make-before-break;
 - ``steering`` ("electronic"): "mechanical" apertures pay slew time = angle / ``slew_rate_deg_s``
   plus ``settle_s``; electronic ones a fixed ``retune_s``;
-- ``interruption_s``: the break of a break-before-make handover before re-pointing is added;
-- ``mbb_interruption_s``: the (usually zero) break of a make-before-break handover.
+- ``interruption_s``: the break of a break-before-make handover before re-pointing is added,
+  and of every change between beams or cells of one satellite (nothing re-points there, and a
+  second aperture does not help);
+- ``mbb_interruption_s``: the (usually zero) break of a make-before-break handover to another
+  satellite.
 
 Default values are illustrative, not measured: set them from the terminal's data sheet.
 """

@@ -42,7 +42,7 @@ _MEASURE_GROUND = noise.stream_id("measurement-ground-cells")
 _NLOS = noise.stream_id("nlos-rows")
 FIELDS = ("sat", "win", "cell", "beam", "rsrp_dbm", "rsrp_raw_dbm", "snr_db", "sinr_db",
           "elevation_deg", "azimuth_deg", "range_km", "nadir_km", "ref_km", "start_s", "end_s",
-          "range_rate_km_s")
+          "cell_end_s", "range_rate_km_s")
 INT_FIELDS = ("sat", "win", "cell", "beam")
 
 
@@ -180,7 +180,8 @@ class MeasurementStream:
                     v["azimuth_deg"], v["range_km"], v["nadir_km"], v["start_s"], v["end_s"],
                     certain_until_s=math.inf if final else float(t[-1]), final=final,
                     range_rate_km_s=v["range_rate_km_s"], cell=v["cell"], beam=v["beam"],
-                    sinr_db=v["sinr_db"], rsrp_raw_dbm=v["rsrp_raw_dbm"], ref_km=v["ref_km"])
+                    sinr_db=v["sinr_db"], rsrp_raw_dbm=v["rsrp_raw_dbm"], ref_km=v["ref_km"],
+                    cell_end_s=v["cell_end_s"])
 
     def release(self, k: int, reader: object = None) -> None:
         """``reader`` no longer needs rows before k; rows every reader has passed may go."""
@@ -412,6 +413,7 @@ class MeasurementStream:
             "beam": beam, "raw": meas, "snr_db": snr[order], "sinr_db": sinr[order],
             "elevation_deg": lk["elevation_deg"][pr], "azimuth_deg": lk["azimuth_deg"][pr],
             "range_km": lk["range_km"][pr], "nadir_km": nadir_km[pr], "ref_km": cs.ref_km[order],
+            "until_s": cs.until_s[order],
             "range_rate_km_s": self._range_rate(lk["range_km"], seg_start)[pr]}
 
     def _ground(self, own, sat, k, t, r_sat, pos, k0, k_hi, ti):
@@ -449,6 +451,8 @@ class MeasurementStream:
         blk["beam"][r, c] = vals["beam"]
         blk["start_s"][r, c] = idx.start_s[vals["pair_win"]]
         blk["end_s"][r, c] = idx.end_s[vals["pair_win"]]
+        # a cell's service ends with its satellite's window, or earlier at a cell switch
+        blk["cell_end_s"][r, c] = np.fmin(idx.end_s[vals["pair_win"]], vals["until_s"])
         blk["rsrp_dbm"][r, c] = filt
         blk["rsrp_raw_dbm"][r, c] = vals["raw"]
         for f in ("snr_db", "sinr_db", "elevation_deg", "azimuth_deg", "range_km", "nadir_km",
