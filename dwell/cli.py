@@ -16,6 +16,7 @@ from . import __version__
 from .io.atomic import OutputError, check_output
 from .io.errors import InputError
 from .io.text import format_table
+from .progress import Progress
 
 
 def _warn(msg: str) -> None:
@@ -35,23 +36,6 @@ def guarded(fn):
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
     return wrapper
-
-
-class Progress:
-    """A one-line progress display on stderr (silent when stderr is not a terminal)."""
-
-    def __init__(self, label: str, enabled: bool | None = None):
-        self.label = label
-        self.enabled = sys.stderr.isatty() if enabled is None else enabled
-
-    def __call__(self, done: int, total: int) -> None:
-        if self.enabled:
-            click.echo(f"\r{self.label}: {done}/{total}", err=True, nl=done >= total)
-
-    def hours(self, done_s: float, total_s: float) -> None:
-        if self.enabled:
-            click.echo(f"\r{self.label}: {done_s / 3600:.1f}/{total_s / 3600:.1f}", err=True,
-                       nl=done_s >= total_s)
 
 
 @click.group()
@@ -76,7 +60,8 @@ def passes(config: Path, out: Path) -> None:
     check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
     geo = Geometry(scen, warn=_warn, slots=False)
-    geo.run_all(Progress("geometry chunks"))
+    with Progress("geometry", "chunks") as bar:
+        geo.run_all(bar.to)
     df = passes_frame(geo)
     write_frame(df, out, scen)
     vis = visible_frame(geo)
@@ -110,8 +95,9 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
-    tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
-                     progress=Progress("simulated hours", None).hours)
+    with Progress("simulating", "h", scale=1 / 3600, decimals=1) as bar:
+        tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
+                         progress=bar.to)
     click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
     click.echo(f"tables -> {out}")
 
@@ -198,8 +184,18 @@ def bench(quick: bool, out: Path) -> None:
     """Measure speed and memory against reference implementations, side by side."""
     from .bench import format_bench, run_bench, write_bench
 
+    from .bench import FULL, QUICK
+
     check_output(out, folder=True)
-    df, exps = run_bench(quick, lambda msg: click.echo(msg, err=True))
+    cases = QUICK if quick else FULL
+    with Progress("bench", "cases", len(cases)) as bar:
+        started = [0]
+
+        def show(msg: str) -> None:      # run_bench announces each case before running it
+            bar.to(started[0], note=msg.removeprefix("bench: ").removesuffix(" ..."))
+            started[0] += 1
+        df, exps = run_bench(quick, show)
+        bar.to(len(cases))
     write_bench(df, exps, out)
     click.echo(format_bench(df, exps), nl=False)
     click.echo(f"results -> {out}")
@@ -232,16 +228,10 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
                f"on {workers} worker(s) (rough estimate)")
     if dry_run:
         return
-    bar = Progress("runs", None)
-
-    def show(done, failed, total, eta):
-        if bar.enabled:
-            left_txt = "" if eta != eta else f", about {eta / 60:.1f} min left"
-            click.echo(f"\rruns: {done + failed}/{total} ({failed} failed{left_txt})   ", err=True,
-                       nl=done + failed >= total)
-
-    rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
-                        progress=show)
+    with Progress("sweep", "runs") as bar:
+        rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
+                            progress=lambda done, failed, total, eta:
+                            bar.to(done + failed, total, f"{failed} failed"))
     click.echo(f"done {rep.done}, failed {rep.failed}, skipped {rep.skipped} (already finished) "
                f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
     for e in rep.errors[:10]:
