@@ -155,24 +155,61 @@ def compare(outdir: Path) -> None:
     click.echo(text, nl=False)
 
 
+def _view_options(fn):
+    """--terminal, --hour, --policy: what the one-terminal, one-hour figures show."""
+    fn = click.option("--policy", default=None,
+                      help="Policy of the sky view and trace (default: the first).")(fn)
+    fn = click.option("--hour", default=None, type=int,
+                      help="Scenario hour of the timeline, sky view and trace (default: 0).")(fn)
+    fn = click.option("--terminal", default=None,
+                      help="Terminal of the timeline, sky view and trace (default: the last).")(fn)
+    return fn
+
+
+def _is_sweep(outdir: Path) -> bool:
+    return (outdir / "_sweep.toml").exists()
+
+
 @main.command()
 @click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
-@click.option("--terminal", default=None, help="Terminal for the timeline and sky view (default: last).")
-@click.option("--hour", default=0, show_default=True, type=click.IntRange(0),
-              help="Hour of the scenario for the timeline and sky view.")
-@click.option("--policy", default=None, help="Policy whose serving segments the sky view draws.")
+@_view_options
 @guarded
-def plot(outdir: Path, terminal: str | None, hour: int, policy: str | None) -> None:
-    """Draw a run's (or a sweep's) figures as PNG files in OUTDIR/plots."""
-    if (outdir / "_sweep.toml").exists():
+def plot(outdir: Path, terminal: str | None, hour: int | None, policy: str | None) -> None:
+    """Draw a run's figures as PNG files in OUTDIR/plots (a sweep's in OUTDIR/_plots).
+
+    The options are checked before anything is drawn; every figure is drawn before the first
+    file is written."""
+    if _is_sweep(outdir):
         from .sweep.plots import plot_sweep
-        files = plot_sweep(outdir)
+        files = plot_sweep(outdir, terminal=terminal, policy=policy, hour=hour)
     else:
-        from .analysis.report import plot_run
+        from .analysis.figures import plot_run
         _need(outdir, "run.toml")
         files = plot_run(outdir, terminal, hour, policy)
     for f in files:
         click.echo(f"wrote {f}")
+
+
+@main.command()
+@click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
+@_view_options
+@click.option("-o", "--output", "out", default=None, type=click.Path(dir_okay=False, path_type=Path),
+              help="HTML file to write (default: OUTDIR/report.html).")
+@guarded
+def report(outdir: Path, terminal: str | None, hour: int | None, policy: str | None,
+           out: Path | None) -> None:
+    """Write one self-contained HTML page of a run or sweep folder: figures, summary and
+    comparison tables, the resolved configuration and the cautions (reads offline)."""
+    if out is not None:
+        check_output(out, folder=False)
+    if _is_sweep(outdir):
+        from .sweep.report import report_sweep
+        path = report_sweep(outdir, terminal=terminal, policy=policy, hour=hour, output=out)
+    else:
+        from .analysis.report import report_run
+        _need(outdir, "run.toml")
+        path = report_run(outdir, terminal, policy, hour, output=out)
+    click.echo(f"wrote {path}")
 
 
 @main.command()
