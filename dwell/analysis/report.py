@@ -59,6 +59,7 @@ table { border-collapse: collapse; font-size: 0.85em; margin: 0.5em 0; }
 th, td { border: 1px solid #ccc; padding: 0.2em 0.5em; text-align: right; white-space: nowrap; }
 th { background: #f0f0f0; }
 td.text, th.text { text-align: left; }
+td.wrap { white-space: normal; min-width: 24em; text-align: left; }
 caption { text-align: left; font-weight: bold; padding: 0.3em 0; }
 figure { margin: 1em 0 2em 0; }
 figure img { max-width: 100%; height: auto; border: 1px solid #ddd; }
@@ -109,17 +110,18 @@ Cell = Callable[[pd.Series], str]
 
 
 def table_html(df: pd.DataFrame, columns: dict[str, str | Cell], anchor: str, caption: str,
-               text_columns: tuple[str, ...] = ()) -> str:
+               text_columns: tuple[str, ...] = (), wrap_columns: tuple[str, ...] = ()) -> str:
     """An HTML table with ``id=anchor``: ``columns`` maps each header to a column name or to a
-    function of the row giving the cell's text.  Cost: O(rows x columns)."""
-    heads = "".join(f'<th class="{"text" if h in text_columns else "num"}">{esc(h)}</th>'
-                    for h in columns)
+    function of the row giving the cell's text; text columns align left, wrap columns also
+    break lines.  Cost: O(rows x columns)."""
+    left = text_columns + wrap_columns
+    heads = "".join(f'<th class="{"text" if h in left else "num"}">{esc(h)}</th>' for h in columns)
     rows = []
     for _, r in df.iterrows():
         cells = []
         for head, col in columns.items():
             text = col(r) if callable(col) else fmt(r[col])
-            cls = "text" if head in text_columns else "num"
+            cls = "wrap" if head in wrap_columns else "text" if head in text_columns else "num"
             cells.append(f'<td class="{cls}">{esc(text)}</td>')
         rows.append("<tr>" + "".join(cells) + "</tr>")
     return (f'<div class="wide"><table id="{esc(anchor)}"><caption>{esc(caption)}</caption>'
@@ -242,8 +244,8 @@ def report_run(run_dir: str | Path, terminal: str | None = None, policy: str | N
         Section("comparison", "Simulated against analytic",
                 table_html(comparison, comparison_columns(), "comparison-table",
                            "Closed-form checks where their assumptions hold",
-                           ("terminal", "policy", "quantity", "analytic inside interval",
-                            "note"))),
+                           ("terminal", "policy", "quantity", "analytic inside interval"),
+                           wrap_columns=("note",))),
         Section("figures", "Figures", "".join(figure_html(f) for f in figures)),
         Section("configuration", "Resolved configuration (run.toml)",
                 "<p>The run repeats exactly with <code>dwell run run.toml -o DIR</code>.</p>"
