@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -18,6 +19,7 @@ from ..io.atomic import write_bytes
 from ..io.config import load_scenario
 from ..io.errors import InputError
 from . import plots, time_plots
+from .plots import Figure
 from .hourly import hourly_series, switch_intervals
 
 MAX_PANELS = 6     # terminals side by side in one figure; more and only the chosen one is drawn
@@ -68,11 +70,12 @@ def check_choice(run_dir: str | Path, terminal: str | None, policy: str | None,
     return PlotChoice(terminal or terms[-1], policy or pols[0], int(hour or 0), hours)
 
 
-def render_run(run_dir: str | Path, choice: PlotChoice,
-               comparison: pd.DataFrame | None = None) -> list[Rendered]:
+def render_run(run_dir: str | Path, choice: PlotChoice, comparison: pd.DataFrame | None = None,
+               finish: Callable[[Figure], bytes] = plots.png_bytes) -> list[Rendered]:
     """Draw every figure of a run folder (in memory); ``comparison`` is the folder's
-    :func:`dwell.analysis.compare.compare_run` if already computed.  Cost: a few seconds; the
-    sky view recomputes the chosen hour's satellite tracks from run.toml."""
+    :func:`dwell.analysis.compare.compare_run` if already computed; ``finish`` turns each
+    figure into PNG bytes (checks hook in here).  Cost: a few seconds; the sky view recomputes
+    the chosen hour's satellite tracks from run.toml."""
     from .compare import compare_run
 
     run_dir = Path(run_dir)
@@ -89,7 +92,7 @@ def render_run(run_dir: str | Path, choice: PlotChoice,
     out: list[Rendered] = []
 
     def add(name: str, caption: str, fig) -> None:
-        out.append(Rendered(name, caption, plots.png_bytes(fig)))
+        out.append(Rendered(name, caption, finish(fig)))
 
     add("dwell_ccdf.png", "Dwell time per link, complementary CDF per policy and terminal.",
         plots.ccdf_figure(pd.read_parquet(run_dir / "dwell_ccdf.parquet")))

@@ -72,8 +72,12 @@ def _polar_sky(ax) -> None:
 
 def mask_plot(az_deg: np.ndarray, el_deg: np.ndarray, floor_deg: float, title: str,
               path: Path) -> None:
-    """A mask as a polar sky view (zenith at the centre) and as elevation against azimuth,
-    written to ``path`` (PNG)."""
+    """:func:`mask_figure` written to ``path`` (PNG, atomically)."""
+    save_png(mask_figure(az_deg, el_deg, floor_deg, title), path)
+
+
+def mask_figure(az_deg: np.ndarray, el_deg: np.ndarray, floor_deg: float, title: str) -> Figure:
+    """A mask as a polar sky view (zenith at the centre) and as elevation against azimuth."""
     fig = plt.figure(figsize=(11, 5.2), layout="constrained")
     ax = fig.add_subplot(1, 2, 1, projection="polar")
     th = np.radians(np.append(az_deg, az_deg[0]))
@@ -97,7 +101,7 @@ def mask_plot(az_deg: np.ndarray, el_deg: np.ndarray, floor_deg: float, title: s
     ax2.legend(fontsize=8, loc="upper left")
     ax2.grid(alpha=0.3)
     fig.suptitle(title, fontsize=12)
-    save_png(fig, path)
+    return fig
 
 
 def ccdf_figure(ccdf) -> Figure:

@@ -11,13 +11,14 @@ import json
 import re
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 
 from ..analysis.analytic import poisson_rate_interval
 from ..analysis.figures import Rendered, write_rendered
-from ..analysis.plots import plt, png_bytes
+from ..analysis.plots import Figure, plt, png_bytes
 from ..io.errors import InputError
 from .execute import combined_summary
 
@@ -244,9 +245,10 @@ def check_sweep_options(out: Path, df: pd.DataFrame, terminal: str | None, polic
 
 
 def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str | None = None,
-                 hour: int | None = None) -> list[Rendered]:
-    """Check the options, then draw every sweep figure in memory.  Cost: about a second per
-    terminal figure."""
+                 hour: int | None = None, finish: Callable[[Figure], bytes] = png_bytes
+                 ) -> list[Rendered]:
+    """Check the options, then draw every sweep figure in memory (``finish`` turns each into
+    PNG bytes).  Cost: about a second per terminal figure."""
     out = Path(out_dir)
     df = combined_summary(out)
     if df.empty:
@@ -264,11 +266,11 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
             f"tradeoff_{_slug(term)}.png",
             f"{term}: handover rate against each swept value, and outage, ping-pong and "
             "failures against handover rate (95 % intervals).",
-            png_bytes(tradeoff_figure(d, term, axes))))
+            finish(tradeoff_figure(d, term, axes))))
     pols = list(dict.fromkeys(df["policy"].astype(str)))
     figures.append(Rendered("worst_hour_switches.png", "Worst-hour handovers per policy over "
                             "the runs, per terminal.",
-                            png_bytes(worst_hour_figure(df, chosen[:4], pols))))
+                            finish(worst_hour_figure(df, chosen[:4], pols))))
     return figures
 
 
