@@ -196,9 +196,9 @@ def test_overlap_check_finds_the_old_mask_title_clash():
     # the mask figure's layout before issue 16 (suptitle raised to y=1.04 over a polar title
     # padded by 18 points): the check must report it, or passing it would mean nothing
     fig = plt.figure(figsize=(11, 4.5))
-    fig.add_subplot(1, 2, 1, projection="polar").set_title("sky view", pad=18)
+    fig.add_subplot(1, 2, 1, projection="polar").set_title("sky view (elevation rings, deg)", pad=18)
     fig.add_subplot(1, 2, 2)
-    fig.suptitle("site: elevation mask", y=1.04)
+    fig.suptitle("tannery-row: elevation mask", y=1.04)
     assert ("suptitle", "axes 0 title") in text_overlaps(fig)
     plt.close(fig)
 
