@@ -194,7 +194,8 @@ def plot(outdir: Path, terminal: str | None, hour: int | None, policy: str | Non
 @click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
 @_view_options
 @click.option("-o", "--output", "out", default=None, type=click.Path(dir_okay=False, path_type=Path),
-              help="HTML file to write (default: OUTDIR/report.html).")
+              help="HTML file to write (default: OUTDIR/report.html; OUTDIR/_report.html for a "
+                   "sweep, which keeps it out of the sweep's Parquet dataset).")
 @guarded
 def report(outdir: Path, terminal: str | None, hour: int | None, policy: str | None,
            out: Path | None) -> None:

@@ -10,7 +10,7 @@ from typing import Any
 
 import pandas as pd
 
-from ..analysis.report import (REPORT_NAME, Section, all_columns_html, esc, figure_html, fmt,
+from ..analysis.report import (Section, all_columns_html, esc, figure_html, fmt,
                                page_html, pre_html, table_html, with_interval)
 from ..io.atomic import write_text
 from ..io.errors import InputError
@@ -18,6 +18,9 @@ from .execute import combined_summary
 from .plots import SweptAxis, render_sweep, swept_axes
 
 MAX_CONFIGS = 200     # runs whose resolved configuration the page carries in full
+# the leading underscore keeps it out of the Parquet dataset: pandas.read_parquet(DIR) reads
+# every file not starting with "_" or "." as part of the combined summary
+SWEEP_REPORT_NAME = "_report.html"
 
 
 def _sweep_name(out: Path) -> str:
@@ -77,7 +80,7 @@ def _sorted_runs(d: pd.DataFrame, axes: list[SweptAxis]) -> pd.DataFrame:
 
 def report_sweep(out_dir: str | Path, terminal: str | None = None, policy: str | None = None,
                  hour: int | None = None, output: str | Path | None = None) -> Path:
-    """Write the sweep folder's report page (default ``DIR/report.html``); returns its path.
+    """Write the sweep folder's report page (default ``DIR/_report.html``); returns its path.
     Options as for ``dwell plot`` of a sweep, checked first.  Cost: the sweep figures (about a
     second per terminal) and reading each run's run.toml."""
     out = Path(out_dir)
@@ -136,6 +139,6 @@ def report_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
              ("terminals", ", ".join(terms[:20]) + (", ..." if len(terms) > 20 else "")),
              ("policies", ", ".join(dict.fromkeys(df["policy"].astype(str))))]
     page = page_html(f"dwell sweep report: {_sweep_name(out)}", facts, sections)
-    target = Path(output) if output is not None else out / REPORT_NAME
+    target = Path(output) if output is not None else out / SWEEP_REPORT_NAME
     write_text(target, page)
     return target
