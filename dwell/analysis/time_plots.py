@@ -187,8 +187,8 @@ def trace_figure(trace: pd.DataFrame, handovers: pd.DataFrame, terminal: str, po
                       colors="crimson", linewidths=0.6, linestyles=":",
                       label="handover (beam change, same satellite)")
         ax.grid(alpha=0.3)
-    for ax, col in ((a1, ["rsrp_dbm", "rsrp_raw_dbm"]), (a2, ["sinr_db"])):
-        vals = tr[col].to_numpy(dtype=float).ravel()
+    for ax, vals in ((a1, tr[["rsrp_dbm", "rsrp_raw_dbm"]].to_numpy(dtype=float).ravel()),
+                     (a2, sv["sinr_db"].to_numpy(dtype=float))):
         vals = vals[np.isfinite(vals)]
         if vals.size:
             pad = 0.05 * max(1.0, float(vals.max() - vals.min()))
