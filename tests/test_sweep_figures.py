@@ -176,3 +176,28 @@ def test_bad_sweep_plot_option_is_one_line_exit_2_and_writes_nothing(sweep_dir, 
     assert (sorted((sweep_dir / "_plots").iterdir()) if (sweep_dir / "_plots").exists()
             else []) == plots_before
     assert not target.exists()
+
+
+def test_site_sweep_draws_results_per_site_in_sweep_order(tmp_path):
+    # README: latitude-band sites are evenly spaced from lat_min_deg to lat_max_deg and named
+    # lat+000.0, ...: 0, 30, 60 deg for count = 3
+    (tmp_path / "sites.toml").write_text(tomli_w.dumps({
+        "sweep": {"base": str(QUICK)},
+        "overrides": {"scenario.duration_s": 600},
+        "axis": [{"key": "terminal", "sites": {"kind": "latitude-band", "lat_min_deg": 60,
+                                               "lat_max_deg": 0, "count": 3, "lon_deg": 10}},
+                 {"key": "policy", "values": ["a3"]}]}))
+    out = tmp_path / "out"
+    res = _dwell("sweep", str(tmp_path / "sites.toml"), "-o", str(out), "--workers", "1")
+    assert res.exit_code == 0, res.output
+    seen = {}
+
+    def keep(fig):
+        seen[fig.get_suptitle()] = [t.get_text() for t in fig.axes[0].get_xticklabels()]
+        assert text_overlaps(fig) == []
+        return png_bytes(fig)
+
+    names = [f.name for f in render_sweep(out, finish=keep)]
+    assert "by_site.png" in names
+    ticks = next(v for k, v in seen.items() if k.startswith("Results per swept site"))
+    assert ticks == ["lat+060.0", "lat+030.0", "lat+000.0"]     # the sweep file's order

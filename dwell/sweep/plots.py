@@ -63,9 +63,16 @@ def _file_order(out: Path) -> dict[str, list]:
         raw = read_toml(out / "_sweep.toml")
     except InputError:
         return {}
+    from .spec import generate_sites
     order = {}
     for t in raw.get("axis", []) if isinstance(raw.get("axis"), list) else []:
-        if isinstance(t, dict) and isinstance(t.get("values"), list):
+        if isinstance(t, dict) and t.get("key") == "terminal" and isinstance(t.get("sites"), dict):
+            try:           # the generated sites' names depend on the generator only
+                order["terminal"] = [v[0]["name"] for v in
+                                     generate_sites(t["sites"], {}, "_sweep.toml", "axis")]
+            except (InputError, KeyError, TypeError, ValueError):
+                pass
+        elif isinstance(t, dict) and isinstance(t.get("values"), list):
             order[str(t.get("key"))] = [float(v) if isinstance(v, (int, float))
                                         and not isinstance(v, bool) else v for v in t["values"]]
     return order
@@ -123,14 +130,24 @@ TRADE = (("outage", "outage (% of time, switching excluded)"),
          ("rlf", "radio link failures per hour"))
 
 
+def _policy_order(axes: list[SweptAxis]) -> list[str] | None:
+    return next(([str(v) for v in a.order] for a in axes if a.key == "policy"), None)
+
+
 def _fmt_value(v) -> str:
     return f"{v:g}" if isinstance(v, (int, float, np.floating)) else str(v)
 
 
-def _curves(d: pd.DataFrame, along: SweptAxis | None, others: list[SweptAxis]):
+def _curves(d: pd.DataFrame, along: SweptAxis | None, others: list[SweptAxis],
+            policy_order: list[str] | None = None):
     """Groups of runs equal in every other axis (and policy), each sorted in sweep order of
     ``along``: yields (legend label, rows)."""
     keys = ["policy"] + [a.column for a in others]
+    policy_rank = {p: i for i, p in enumerate(policy_order or [])}
+    for p in dict.fromkeys(d["policy"].astype(str)):
+        policy_rank.setdefault(p, len(policy_rank))
+    ranks = [{v: i for i, v in enumerate(a.order)} for a in others]
+    groups = []
     for vals, g in d.groupby(keys, sort=False, observed=True, dropna=False):
         vals = vals if isinstance(vals, tuple) else (vals,)
         label = " · ".join([str(vals[0])] + [f"{a.short}={_fmt_value(v)}"
@@ -138,6 +155,10 @@ def _curves(d: pd.DataFrame, along: SweptAxis | None, others: list[SweptAxis]):
         if along is not None:
             rank = {v: i for i, v in enumerate(along.order)}
             g = g.assign(_rank=g[along.column].map(rank)).sort_values("_rank", kind="stable")
+        order = (policy_rank.get(str(vals[0]), 0),) + tuple(r.get(v, len(r))
+                                                          for r, v in zip(ranks, vals[1:]))
+        groups.append((order, label, g))
+    for _, label, g in sorted(groups, key=lambda x: x[0]):    # legend in sweep order too
         yield label, g
 
 
@@ -145,29 +166,36 @@ def tradeoff_figure(d: pd.DataFrame, terminal: str, axes: list[SweptAxis]):
     """One terminal: per numeric swept axis a block of four panels (handover rate against the
     value, then outage, ping-pong and failures against handover rate), or one block of points
     labelled by policy if no numeric axis varies."""
-    curve_axes = [a for a in axes if a.numeric] or [None]
+    # a seed is a replication, not a setting: its runs form separate lines, never a curve
+    curve_axes = [a for a in axes if a.numeric and not a.key.endswith(".seed")] or [None]
     fig = plt.figure(figsize=(14, 8.4 * len(curve_axes)), layout="constrained")
     blocks = np.atleast_1d(fig.subfigures(len(curve_axes), 1))
     for block, along in zip(blocks, curve_axes):
         panels = block.subplots(2, 2).ravel()
-        others = [a for a in axes if a is not along and a.column != "policy_set"]
-        groups = list(_curves(d, along, others))
+        # policy is its own grouping; a terminal set is fixed by the terminal drawn here
+        others = [a for a in axes if a is not along
+                  and a.column not in ("policy_set", "terminal_set")]
+        groups = list(_curves(d, along, others, _policy_order(axes)))
         cmap = plt.get_cmap("tab10" if len(groups) <= 10 else "tab20")
         for k, (label, g) in enumerate(groups):
             colour = cmap(k % cmap.N)
             m = _metrics(g)
             ho, ho_lo, ho_hi = m["ho"]
-            if along is not None:
-                x = g[along.column].to_numpy(dtype=float)
-                panels[0].errorbar(x, ho, yerr=_err(ho, ho_lo, ho_hi), color=colour, marker="o",
-                                   ms=4, capsize=2, lw=1.2, label=label)
+            x = g[along.column].to_numpy(dtype=float) if along is not None \
+                else np.full(len(g), float(k))
+            panels[0].errorbar(x, ho, yerr=_err(ho, ho_lo, ho_hi), color=colour, marker="o",
+                               ms=4, capsize=2, lw=1.2, label=label)
             names = [_fmt_value(v) for v in g[along.column]] if along is not None \
                 else [label] * len(g)
             for ax, (key, _) in zip(panels[1:], TRADE):
                 y, lo, hi = m[key]
-                ax.errorbar(ho, y, xerr=_err(ho, ho_lo, ho_hi), yerr=_err(y, lo, hi),
-                            color=colour, marker="o", ms=4, capsize=2, elinewidth=0.6,
-                            lw=1.2 if along is not None else 0, label=label)
+                # the handover-rate intervals are in the first panel; here only y's, faint,
+                # so that the wide intervals of zero counts do not hide the points
+                bars = ax.errorbar(ho, y, yerr=_err(y, lo, hi), color=colour, marker="o", ms=4,
+                                   capsize=2, elinewidth=0.6, lw=1.2 if along is not None else 0,
+                                   label=label)
+                for part in bars.lines[1] + bars.lines[2]:
+                    part.set_alpha(0.45)
                 for xi, yi, name in zip(ho, y, names):
                     ax.annotate(name, (xi, yi), xytext=(4, 4), textcoords="offset points",
                                 fontsize=7, color=colour)
@@ -176,11 +204,14 @@ def tradeoff_figure(d: pd.DataFrame, terminal: str, axes: list[SweptAxis]):
             panels[0].set_title(f"Handover rate against {along.short}", fontsize=10)
             panels[0].set_xticks(sorted({float(v) for v in along.order}))
             block.suptitle(f"Swept: {along.label}; trade-off points are labelled with its "
-                           "value and joined in sweep order", fontsize=10)
+                           "value and joined in sweep order (handover-rate intervals: first "
+                           "panel)", fontsize=10)
         else:
-            panels[0].set_axis_off()
-            panels[0].text(0.5, 0.5, "no numeric axis varies:\npoints are labelled by policy",
-                           ha="center", va="center", transform=panels[0].transAxes)
+            panels[0].set_xticks(range(len(groups)), [lab for lab, _ in groups], rotation=20,
+                                 ha="right", fontsize=8)
+            panels[0].set_xlim(-0.5, len(groups) - 0.5)
+            panels[0].set_xlabel("runs (no numeric axis varies)")
+            panels[0].set_title("Handover rate per run", fontsize=10)
         panels[0].set_ylabel("handovers per hour")
         for ax, (_, ylabel) in zip(panels[1:], TRADE):
             ax.set_xlabel("handovers per hour")
@@ -194,6 +225,40 @@ def tradeoff_figure(d: pd.DataFrame, terminal: str, axes: list[SweptAxis]):
         panels[1].legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.02, 1.0),
                          title="lines: runs alike in\nevery other axis", title_fontsize=8)
     fig.suptitle(f"{terminal}: sweep trade-offs (bars: 95 % intervals from the summary)")
+    return fig
+
+
+def by_terminal_figure(df: pd.DataFrame, terminal_axis: SweptAxis, axes: list[SweptAxis]):
+    """A terminal axis (generated sites): handovers, outage, ping-pong and failures per hour
+    against the site, in sweep order, one line per set of runs alike in every other axis."""
+    others = [a for a in axes if a is not terminal_axis and a.column != "policy_set"]
+    sites = [str(v) for v in terminal_axis.order]
+    position = {s: i for i, s in enumerate(sites)}
+    fig, panels = plt.subplots(2, 2, figsize=(14, 8.4), layout="constrained")
+    panels = panels.ravel()
+    quantities = (("ho", "handovers per hour"),) + TRADE
+    groups = list(_curves(df.assign(_site=df["terminal"].astype(str).map(position))
+                          .sort_values("_site", kind="stable"), None, others,
+                          _policy_order(axes)))
+    cmap = plt.get_cmap("tab10" if len(groups) <= 10 else "tab20")
+    for k, (label, g) in enumerate(groups):
+        g = g.sort_values("_site", kind="stable")
+        m = _metrics(g)
+        for ax, (key, _) in zip(panels, quantities):
+            y, lo, hi = m[key]
+            ax.errorbar(g["_site"].to_numpy(dtype=float), y, yerr=_err(y, lo, hi),
+                        color=cmap(k % cmap.N), marker="o", ms=4, capsize=2, lw=1.2, label=label)
+    for ax, (_, ylabel) in zip(panels, quantities):
+        ax.set_xticks(range(len(sites)), sites, rotation=30 if len(sites) > 6 else 0,
+                      ha="right" if len(sites) > 6 else "center", fontsize=8)
+        ax.set_xlabel("terminal (swept site, in sweep order)")
+        ax.set_ylabel(ylabel)
+        ax.set_title(f"{ylabel.split(' (')[0].capitalize()} per site", fontsize=10)
+        ax.set_ylim(bottom=0)
+        ax.grid(alpha=0.3)
+    panels[1].legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.02, 1.0),
+                     title="lines: runs alike in\nevery other axis", title_fontsize=8)
+    fig.suptitle("Results per swept site (bars: 95 % intervals from the summary)")
     return fig
 
 
@@ -258,6 +323,10 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     if policy is not None:
         df = df[df["policy"].astype(str) == policy]
     terms = list(dict.fromkeys(df["terminal"].astype(str)))
+    site_axis = next((a for a in axes if a.key == "terminal"), None)
+    if site_axis is not None:         # generated sites in sweep order
+        rank = {str(v): i for i, v in enumerate(site_axis.order)}
+        terms.sort(key=lambda t: rank.get(t, len(rank)))
     chosen = [terminal] if terminal is not None else terms[:MAX_TERMINALS]
     figures = []
     for term in chosen:
@@ -267,6 +336,10 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
             f"{term}: handover rate against each swept value, and outage, ping-pong and "
             "failures against handover rate (95 % intervals).",
             finish(tradeoff_figure(d, term, axes))))
+    if site_axis is not None and terminal is None:
+        figures.append(Rendered("by_site.png", "Handovers, outage, ping-pong and failures per "
+                                "swept site, in sweep order (95 % intervals).",
+                                finish(by_terminal_figure(df, site_axis, axes))))
     pols = list(dict.fromkeys(df["policy"].astype(str)))
     figures.append(Rendered("worst_hour_switches.png", "Worst-hour handovers per policy over "
                             "the runs, per terminal.",
