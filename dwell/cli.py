@@ -60,7 +60,7 @@ def passes(config: Path, out: Path) -> None:
     check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
     geo = Geometry(scen, warn=_warn, slots=False)
-    with Progress("geometry", "chunks") as bar:
+    with Progress("geometry", "chunks", rate_unit="chunk") as bar:
         geo.run_all(bar.to)
     df = passes_frame(geo)
     write_frame(df, out, scen)
@@ -158,11 +158,13 @@ def compare(outdir: Path) -> None:
 def _view_options(fn):
     """--terminal, --hour, --policy: what the one-terminal, one-hour figures show."""
     fn = click.option("--policy", default=None,
-                      help="Policy of the sky view and trace (default: the first).")(fn)
+                      help="Policy of the sky view and trace (default: the first); for a "
+                           "sweep, draw only this policy's runs.")(fn)
     fn = click.option("--hour", default=None, type=int,
                       help="Scenario hour of the timeline, sky view and trace (default: 0).")(fn)
     fn = click.option("--terminal", default=None,
-                      help="Terminal of the timeline, sky view and trace (default: the last).")(fn)
+                      help="Terminal of the timeline, sky view and trace (default: the last); "
+                           "for a sweep, draw only this terminal's figures.")(fn)
     return fn
 
 
@@ -193,7 +195,8 @@ def plot(outdir: Path, terminal: str | None, hour: int | None, policy: str | Non
 @main.command()
 @click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
 @_view_options
-@click.option("-o", "--output", "out", default=None, type=click.Path(dir_okay=False, path_type=Path),
+@click.option("-o", "--output", "out", default=None,
+              type=click.Path(dir_okay=False, path_type=Path),
               help="HTML file to write (default: OUTDIR/report.html; OUTDIR/_report.html for a "
                    "sweep, which keeps it out of the sweep's Parquet dataset).")
 @guarded
@@ -226,7 +229,7 @@ def bench(quick: bool, out: Path) -> None:
 
     check_output(out, folder=True)
     cases = QUICK if quick else FULL
-    with Progress("bench", "cases", len(cases)) as bar:
+    with Progress("bench", "cases", len(cases), rate_unit="case") as bar:
         started = [0]
 
         def show(msg: str) -> None:      # run_bench announces each case before running it
@@ -266,7 +269,7 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
                f"on {workers} worker(s) (rough estimate)")
     if dry_run:
         return
-    with Progress("sweep", "runs") as bar:
+    with Progress("sweep", "runs", rate_unit="run") as bar:
         rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
                             progress=lambda done, failed, total, eta:
                             bar.to(done + failed, total, f"{failed} failed"))

@@ -16,16 +16,19 @@ from tqdm import tqdm
 
 class Progress:
     """A progress bar: ``label``, position in ``unit`` (after multiplying by ``scale``), rate
-    and estimated time left.  ``enabled=None`` means "when the stream is a terminal".
+    (in ``rate_unit`` if given) and estimated time left.  ``enabled=None`` means "when the
+    stream is a terminal".
 
     Cheap: tqdm redraws at most about ten times a second whatever the update rate.
     """
 
     def __init__(self, label: str, unit: str, total: float | None = None, *, scale: float = 1.0,
-                 decimals: int = 0, enabled: bool | None = None, stream: TextIO | None = None):
+                 decimals: int = 0, rate_unit: str | None = None, enabled: bool | None = None,
+                 stream: TextIO | None = None):
         self.stream = sys.stderr if stream is None else stream
         self.enabled = _is_terminal(self.stream) if enabled is None else bool(enabled)
-        self.label, self.unit, self.scale = label, unit, float(scale)
+        # rate_unit: the singular for rates ("run/s", "s/case"); unit: the count's ("3/8 runs")
+        self.label, self.unit, self.scale = label, rate_unit or unit, float(scale)
         count = f"{{n:.{decimals}f}}/{{total:.{decimals}f}} {unit}"
         self._format = ("{desc}: {percentage:3.0f}%|{bar}| " + count
                         + " [{elapsed} elapsed, {remaining} left, {rate_fmt}]{postfix}")

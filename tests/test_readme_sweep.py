@@ -39,7 +39,8 @@ def test_readme_sweep_examples_expand_as_described(tmp_path):
     assert len(examples) == 3
     for i, text in enumerate(examples):
         path = tmp_path / f"example{i}.toml"
-        path.write_text(text.replace('base = "demo.toml"', f'base = "{ROOT / "configs" / "demo.toml"}"'))
+        demo = ROOT / "configs" / "demo.toml"
+        path.write_text(text.replace('base = "demo.toml"', f'base = "{demo}"'))
         plan = load_sweep(path)
         raw = tomllib.loads(text)
         if raw["sweep"].get("mode", "grid") == "list":

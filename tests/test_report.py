@@ -196,7 +196,8 @@ def test_overlap_check_finds_the_old_mask_title_clash():
     # the mask figure's layout before issue 16 (suptitle raised to y=1.04 over a polar title
     # padded by 18 points): the check must report it, or passing it would mean nothing
     fig = plt.figure(figsize=(11, 4.5))
-    fig.add_subplot(1, 2, 1, projection="polar").set_title("sky view (elevation rings, deg)", pad=18)
+    polar = fig.add_subplot(1, 2, 1, projection="polar")
+    polar.set_title("sky view (elevation rings, deg)", pad=18)
     fig.add_subplot(1, 2, 2)
     fig.suptitle("tannery-row: elevation mask", y=1.04)
     assert ("suptitle", "axes 0 title") in text_overlaps(fig)
@@ -215,7 +216,8 @@ def test_hourly_series_counts_and_splits_by_clock_hour():
     start = pd.Timestamp("2027-01-01T00:00:00Z")
     at = lambda s: start + pd.to_timedelta(s, unit="s")  # noqa: E731
     # handovers at 10 s, 3599 s, 3600 s and 7300 s; hours are half-open [k h, (k+1) h)
-    ho = pd.DataFrame({"terminal": "t", "policy": "p", "time_utc": at([10.0, 3599.0, 3600.0, 7300.0])})
+    ho = pd.DataFrame({"terminal": "t", "policy": "p",
+                       "time_utc": at([10.0, 3599.0, 3600.0, 7300.0])})
     # an obstruction outage across the first hour boundary, and a 2 s switching gap in hour 2
     out = pd.DataFrame({"terminal": "t", "policy": "p",
                         "start_utc": at([3500.0, 7250.0]), "end_utc": at([3700.0, 7252.0]),

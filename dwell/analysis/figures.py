@@ -23,6 +23,8 @@ from .plots import Figure
 from .hourly import hourly_series, switch_intervals
 
 MAX_PANELS = 6     # terminals side by side in one figure; more and only the chosen one is drawn
+TRACE_COLUMNS = ("policy", "time_utc", "terminal", "cell", "satellite", "beam", "rsrp_dbm",
+                 "rsrp_raw_dbm", "sinr_db", "serving")      # the trace contract (issue 11)
 
 
 @dataclass(frozen=True)
@@ -119,12 +121,18 @@ def render_run(run_dir: str | Path, choice: PlotChoice, comparison: pd.DataFrame
     trace_file = run_dir / "trace.parquet"
     if trace_file.is_file():
         trace = pd.read_parquet(trace_file)
-        traced = plots.terminals_of(trace)
+        missing = [c for c in TRACE_COLUMNS if c not in trace.columns]
+        if missing:
+            raise InputError(str(trace_file), None, None,
+                             "not a measurement trace (no column " + ", ".join(missing) + ")")
+        traced, traced_pols = plots.terminals_of(trace), plots.policies_of(trace)
         term = choice.terminal if choice.terminal in traced else traced[0] if traced else None
-        if term is not None:
-            add("trace.png", f"Measurement trace of {term} under {choice.policy}, hour "
+        pol = choice.policy if choice.policy in traced_pols else \
+            traced_pols[0] if traced_pols else None
+        if term is not None and pol is not None:     # the trace holds one terminal (--trace)
+            add("trace.png", f"Measurement trace of {term} under {pol}, hour "
                 f"{choice.hour}: filtered RSRP per cell, serving cell highlighted, handovers.",
-                time_plots.trace_figure(trace, handovers, term, choice.policy, choice.hour, start))
+                time_plots.trace_figure(trace, handovers, term, pol, choice.hour, start))
     return out
 
 

@@ -221,7 +221,8 @@ def timeline_figure(visible, links, handovers, terminal: str, hour: int, start) 
         g = lk[lk["policy"].astype(str) == pol]
         ls, le = minutes(g["start_utc"]), minutes(g["end_utc"])
         keep = (le > 0) & (ls < 60)
-        for j, (s_name, a, b) in enumerate(zip(g["satellite"].astype(str)[keep], ls[keep], le[keep])):
+        names = g["satellite"].astype(str)[keep]
+        for j, (s_name, a, b) in enumerate(zip(names, ls[keep], le[keep])):
             a, b = max(a, 0.0), min(b, 60.0)
             ax.barh(i, b - a, left=a, height=0.6, color=colours[pol], alpha=0.9 if j % 2 else 0.55,
                     edgecolor="none")

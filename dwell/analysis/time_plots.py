@@ -147,7 +147,8 @@ def trace_figure(trace: pd.DataFrame, handovers: pd.DataFrame, terminal: str, po
     lines.  ``trace`` follows the trace contract (policy, time_utc, terminal, cell, satellite,
     beam, rsrp_dbm, rsrp_raw_dbm, sinr_db, serving).  Cost: O(rows log rows) plus drawing."""
     t0 = hour * 3600.0
-    tr = trace[(trace["terminal"].astype(str) == terminal) & (trace["policy"].astype(str) == policy)]
+    tr = trace[(trace["terminal"].astype(str) == terminal)
+               & (trace["policy"].astype(str) == policy)]
     minute = (seconds_since(tr["time_utc"], start) - t0) / 60.0
     keep = (minute >= 0) & (minute <= 60)
     tr = tr[keep].assign(minute=minute[keep], cell_name=tr["cell"].astype(str)[keep])
