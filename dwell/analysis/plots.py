@@ -271,3 +271,26 @@ def sky_figure(tracks: dict, mask_az: np.ndarray | None, mask_el: np.ndarray | N
     ax.set_title(title + "\nzenith at the centre, rings = elevation, azimuth clockwise from north",
                  pad=14, fontsize=10)
     return fig
+
+
+# ---- the older names: draw and write in one call (kept for callers of dwell.plots) ----------
+
+def ccdf_plot(ccdf, path: Path) -> None:
+    save_png(ccdf_figure(ccdf), path)
+
+
+def rates_plot(summary, path: Path) -> None:
+    save_png(rates_figure(summary), path)
+
+
+def visible_plot(visible, analytic_mean: dict[str, float], start, path: Path) -> None:
+    save_png(visible_figure(visible, analytic_mean, start), path)
+
+
+def timeline_plot(visible, links, handovers, terminal: str, hour: int, start, path: Path) -> None:
+    save_png(timeline_figure(visible, links, handovers, terminal, hour, start), path)
+
+
+def sky_plot(tracks: dict, mask_az, mask_el, floor_deg: float, serving: dict, title: str,
+             path: Path) -> None:
+    save_png(sky_figure(tracks, mask_az, mask_el, floor_deg, serving, title), path)
