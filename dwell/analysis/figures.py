@@ -55,6 +55,10 @@ def check_choice(run_dir: str | Path, terminal: str | None, policy: str | None,
     the run does not have is an InputError naming the folder, the option and the value.
     Defaults: the last terminal, the first policy, hour 0.  Reads summary.parquet only."""
     run_dir = Path(run_dir)
+    for name in ("summary.parquet", "links.parquet", "handovers.parquet", "outages.parquet",
+                 "visible.parquet", "passes.parquet", "dwell_ccdf.parquet"):
+        if not (run_dir / name).is_file():
+            raise InputError(str(run_dir), None, None, f"not a complete run folder (no {name})")
     summary = pd.read_parquet(run_dir / "summary.parquet", columns=["terminal", "policy",
                                                                      "duration_h"])
     terms = plots.terminals_of(summary)

@@ -45,7 +45,8 @@ def param_columns(plan: SweepPlan) -> dict[str, list[str]]:
     or the key with non-word characters as ``_`` when that is taken; ``terminal_set`` and
     ``policy_set`` for the terminal and policy axes, whose full keys name the summary's own
     columns) is kept beside it for compatibility: sweeps read by earlier scripts use it.
-    ``run_task`` assigns each run's value to all of an axis's columns at once.
+    ``run_task`` assigns each run's value to all of an axis's columns at once
+    (``summ[columns] = value`` with the list sets every one of them).
     """
     reserved = {"terminal", "policy", "run_key", "task_key"}
     out, used = {}, set()
