@@ -16,6 +16,7 @@ from . import __version__
 from .io.atomic import OutputError, check_output
 from .io.errors import InputError
 from .io.text import format_table
+from .progress import Progress
 
 
 def _warn(msg: str) -> None:
@@ -35,23 +36,6 @@ def guarded(fn):
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
     return wrapper
-
-
-class Progress:
-    """A one-line progress display on stderr (silent when stderr is not a terminal)."""
-
-    def __init__(self, label: str, enabled: bool | None = None):
-        self.label = label
-        self.enabled = sys.stderr.isatty() if enabled is None else enabled
-
-    def __call__(self, done: int, total: int) -> None:
-        if self.enabled:
-            click.echo(f"\r{self.label}: {done}/{total}", err=True, nl=done >= total)
-
-    def hours(self, done_s: float, total_s: float) -> None:
-        if self.enabled:
-            click.echo(f"\r{self.label}: {done_s / 3600:.1f}/{total_s / 3600:.1f}", err=True,
-                       nl=done_s >= total_s)
 
 
 @click.group()
@@ -76,7 +60,8 @@ def passes(config: Path, out: Path) -> None:
     check_output(out, folder=False)
     scen = load_scenario(config, warn=_warn)
     geo = Geometry(scen, warn=_warn, slots=False)
-    geo.run_all(Progress("geometry chunks"))
+    with Progress("geometry", "chunks", rate_unit="chunk") as bar:
+        geo.run_all(bar.to)
     df = passes_frame(geo)
     write_frame(df, out, scen)
     vis = visible_frame(geo)
@@ -117,8 +102,9 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int,
     if trace is not None and trace not in scen.terminal_names():
         raise InputError(str(config), "--trace", trace,
                          "no such terminal (known: " + ", ".join(scen.terminal_names()) + ")")
-    tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
-                     progress=Progress("simulated hours", None).hours, trace=trace)
+    with Progress("simulating", "h", scale=1 / 3600, decimals=1) as bar:
+        tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
+                         progress=bar.to, trace=trace)
     click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
     click.echo(f"tables -> {out}")
 
@@ -176,24 +162,65 @@ def compare(outdir: Path) -> None:
     click.echo(text, nl=False)
 
 
+def _view_options(fn):
+    """--terminal, --hour, --policy: what the one-terminal, one-hour figures show."""
+    fn = click.option("--policy", default=None,
+                      help="Policy of the sky view and trace (default: the first); for a "
+                           "sweep, draw only this policy's runs.")(fn)
+    fn = click.option("--hour", default=None, type=int,
+                      help="Scenario hour of the timeline, sky view and trace (default: 0).")(fn)
+    fn = click.option("--terminal", default=None,
+                      help="Terminal of the timeline, sky view and trace (default: the last); "
+                           "for a sweep, draw only this terminal's figures.")(fn)
+    return fn
+
+
+def _is_sweep(outdir: Path) -> bool:
+    return (outdir / "_sweep.toml").exists()
+
+
 @main.command()
 @click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
-@click.option("--terminal", default=None, help="Terminal for the timeline and sky view (default: last).")
-@click.option("--hour", default=0, show_default=True, type=click.IntRange(0),
-              help="Hour of the scenario for the timeline and sky view.")
-@click.option("--policy", default=None, help="Policy whose serving segments the sky view draws.")
+@_view_options
 @guarded
-def plot(outdir: Path, terminal: str | None, hour: int, policy: str | None) -> None:
-    """Draw a run's (or a sweep's) figures as PNG files in OUTDIR/plots."""
-    if (outdir / "_sweep.toml").exists():
+def plot(outdir: Path, terminal: str | None, hour: int | None, policy: str | None) -> None:
+    """Draw a run's figures as PNG files in OUTDIR/plots (a sweep's in OUTDIR/_plots).
+
+    The options are checked before anything is drawn; every figure is drawn before the first
+    file is written."""
+    if _is_sweep(outdir):
         from .sweep.plots import plot_sweep
-        files = plot_sweep(outdir)
+        files = plot_sweep(outdir, terminal=terminal, policy=policy, hour=hour)
     else:
-        from .analysis.report import plot_run
+        from .analysis.figures import plot_run
         _need(outdir, "run.toml")
         files = plot_run(outdir, terminal, hour, policy)
     for f in files:
         click.echo(f"wrote {f}")
+
+
+@main.command()
+@click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
+@_view_options
+@click.option("-o", "--output", "out", default=None,
+              type=click.Path(dir_okay=False, path_type=Path),
+              help="HTML file to write (default: OUTDIR/report.html; OUTDIR/_report.html for a "
+                   "sweep, which keeps it out of the sweep's Parquet dataset).")
+@guarded
+def report(outdir: Path, terminal: str | None, hour: int | None, policy: str | None,
+           out: Path | None) -> None:
+    """Write one self-contained HTML page of a run or sweep folder: figures, summary and
+    comparison tables, the resolved configuration and the cautions (reads offline)."""
+    if out is not None:
+        check_output(out, folder=False)
+    if _is_sweep(outdir):
+        from .sweep.report import report_sweep
+        path = report_sweep(outdir, terminal=terminal, policy=policy, hour=hour, output=out)
+    else:
+        from .analysis.report import report_run
+        _need(outdir, "run.toml")
+        path = report_run(outdir, terminal, policy, hour, output=out)
+    click.echo(f"wrote {path}")
 
 
 @main.command()
@@ -205,8 +232,18 @@ def bench(quick: bool, out: Path) -> None:
     """Measure speed and memory against reference implementations, side by side."""
     from .bench import format_bench, run_bench, write_bench
 
+    from .bench import FULL, QUICK
+
     check_output(out, folder=True)
-    df, exps = run_bench(quick, lambda msg: click.echo(msg, err=True))
+    cases = QUICK if quick else FULL
+    with Progress("bench", "cases", len(cases), rate_unit="case") as bar:
+        started = [0]
+
+        def show(msg: str) -> None:      # run_bench announces each case before running it
+            bar.to(started[0], note=msg.removeprefix("bench: ").removesuffix(" ..."))
+            started[0] += 1
+        df, exps = run_bench(quick, show)
+        bar.to(len(cases))
     write_bench(df, exps, out)
     click.echo(format_bench(df, exps), nl=False)
     click.echo(f"results -> {out}")
@@ -239,16 +276,10 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
                f"on {workers} worker(s) (rough estimate)")
     if dry_run:
         return
-    bar = Progress("runs", None)
-
-    def show(done, failed, total, eta):
-        if bar.enabled:
-            left_txt = "" if eta != eta else f", about {eta / 60:.1f} min left"
-            click.echo(f"\rruns: {done + failed}/{total} ({failed} failed{left_txt})   ", err=True,
-                       nl=done + failed >= total)
-
-    rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
-                        progress=show)
+    with Progress("sweep", "runs", rate_unit="run") as bar:
+        rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
+                            progress=lambda done, failed, total, eta:
+                            bar.to(done + failed, total, f"{failed} failed"))
     click.echo(f"done {rep.done}, failed {rep.failed}, skipped {rep.skipped} (already finished) "
                f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
     for e in rep.errors[:10]:

@@ -154,10 +154,15 @@ _SHARED: dict = {}   # the scenario a forked worker inherits (scenario objects h
 
 
 def _worker(args) -> tuple[dict[str, pd.DataFrame], list[str]]:
-    terminals, kernel, check, trace = args
+    index, terminals, kernel, check, trace = args
     messages: list[str] = []      # handed back for the parent to print: a worker's stderr
+    done_s = _SHARED.get("done_s")  # shared with the parent: simulated seconds per worker
+
+    def note(t: float, _total: float) -> None:
+        done_s[index] = t
     frames = run_tables(_SHARED["scen"], terminals, kernel=kernel, check=check,  # may be a copy
-                        warn=messages.append, trace=trace).frames
+                        warn=messages.append, progress=note if done_s is not None else None,
+                        trace=trace).frames
     return frames, messages
 
 
@@ -180,10 +185,18 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
         import multiprocessing as mp
         bounds = np.linspace(0, n, workers + 1).round().astype(int)
         groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+        ctx = mp.get_context("fork")
         _SHARED["scen"] = scen
+        _SHARED["done_s"] = ctx.Array("d", len(groups), lock=False) if progress else None
         try:
-            with mp.get_context("fork").Pool(len(groups)) as pool:
-                parts = pool.map(_worker, [(g, kernel, check, trace) for g in groups])
+            with ctx.Pool(len(groups)) as pool:
+                job = pool.map_async(_worker, [(i, g, kernel, check, trace)
+                                               for i, g in enumerate(groups)])
+                while progress is not None and not job.ready():
+                    job.wait(0.5)
+                    duration_s = float(scen.scenario["duration_s"])
+                    progress(sum(_SHARED["done_s"]) / len(groups), duration_s)
+                parts = job.get()
         finally:
             _SHARED.clear()
         seen: set[str] = set()

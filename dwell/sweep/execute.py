@@ -37,15 +37,28 @@ RUN_TABLES = ("links", "handovers", "outages", "dwell_ccdf", "summary")
 TASK_TABLES = ("passes", "visible")
 
 
-def param_columns(plan: SweepPlan) -> dict[str, str]:
-    """Column name of each axis in the combined summary: the key's last part, unless taken."""
+def param_columns(plan: SweepPlan) -> dict[str, list[str]]:
+    """Columns of each axis in the combined summary: ``{axis key: [column, ...]}``.
+
+    Every axis gets a column named by its full key path (``policy.*.hysteresis_db``), so two
+    axes ending in the same word never collide.  The older short column (the key's last part,
+    or the key with non-word characters as ``_`` when that is taken; ``terminal_set`` and
+    ``policy_set`` for the terminal and policy axes, whose full keys name the summary's own
+    columns) is kept beside it for compatibility: sweeps read by earlier scripts use it.
+    ``run_task`` assigns each run's value to all of an axis's columns at once
+    (``summ[columns] = value`` with the list sets every one of them).
+    """
     reserved = {"terminal", "policy", "run_key", "task_key"}
     out, used = {}, set()
     for ax in plan.axes:
         short = ax.key.split(".")[-1] if ax.key not in ("terminal", "policy") else f"{ax.key}_set"
         name = short if short not in used and short not in reserved else re.sub(r"\W+", "_", ax.key)
         used.add(name)
-        out[ax.key] = name
+        names = [name]
+        if ax.key not in reserved and ax.key != name:
+            names.append(ax.key)
+            used.add(ax.key)
+        out[ax.key] = names
     return out
 
 

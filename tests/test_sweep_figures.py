@@ -1,0 +1,203 @@
+"""Sweep figures and the sweep report (issue 16, items 1, 2 and 6).
+
+Checked against the sweep file written here (its axes, values and order are the reference):
+
+- swept columns keep their full key path, and the older short column stays beside it with the
+  same values (a contract: extended, never renamed);
+- per terminal, the trade-off figure's lines join the points in the sweep file's order, each
+  point is labelled with its swept value, and the error bars are the summary's interval
+  columns (``*_lo``/``*_hi``), never below zero;
+- the sweep report holds every figure, one comparison table per terminal with one row per run
+  of the sweep file, the sweep file verbatim and each run's resolved configuration, and loads
+  nothing from elsewhere;
+- plot options that name nothing in the sweep are one line, exit status 2, nothing written.
+
+Cost: one sweep of four runs in one task (30 minutes of configs/quick.toml each, about 3 s),
+and a few renders.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+import tomli_w
+from click.testing import CliRunner
+
+from dwell.analysis.plots import plt, png_bytes
+from dwell.cli import main
+from dwell.sweep import combined_summary, load_sweep
+from dwell.sweep.execute import param_columns
+from dwell.sweep.plots import _err, render_sweep, swept_axes, tradeoff_figure
+from report_checks import Page, assert_self_contained, image_bytes, png_size, text_overlaps
+
+QUICK = Path(__file__).resolve().parents[1] / "configs" / "quick.toml"
+KEY = "policy.*.hysteresis_db"
+VALUES = [2.0, 0.0]                 # deliberately not ascending: sweep order is file order
+POLICIES = ["a3", "strongest-rsrp"]
+TERMINALS = ["harbour-field", "ridge-camp"]       # configs/quick.toml's terminals
+
+
+def _dwell(*args: str):
+    return CliRunner().invoke(main, list(args))
+
+
+def _sweep_text() -> str:
+    return tomli_w.dumps({
+        "sweep": {"base": str(QUICK), "name": "figures"},
+        "overrides": {"scenario.duration_s": 1800},
+        "axis": [{"key": "policy", "values": POLICIES}, {"key": KEY, "values": VALUES}],
+    })
+
+
+@pytest.fixture(scope="module")
+def sweep_dir(tmp_path_factory) -> Path:
+    folder = tmp_path_factory.mktemp("sweep-figures")
+    (folder / "sweep.toml").write_text(_sweep_text())
+    res = _dwell("sweep", str(folder / "sweep.toml"), "-o", str(folder / "out"), "--workers", "1")
+    assert res.exit_code == 0, res.output
+    return folder / "out"
+
+
+def test_swept_columns_keep_the_full_key_path_and_the_old_short_name(sweep_dir, tmp_path):
+    df = combined_summary(sweep_dir)
+    assert KEY in df.columns and "hysteresis_db" in df.columns
+    assert np.array_equal(df[KEY].to_numpy(), df["hysteresis_db"].to_numpy())
+    assert sorted(set(df[KEY])) == sorted(VALUES)
+    assert "policy_set" in df.columns        # the policy axis keeps its old column
+    # two axes ending in the same word (issue 16: "two terminals' width_m would collide")
+    path = tmp_path / "two.toml"
+    path.write_text(tomli_w.dumps({
+        "sweep": {"base": str(QUICK)},
+        "axis": [{"key": "policy.a3.hysteresis_db", "values": [0, 1]},
+                 {"key": "policy.strongest-rsrp.hysteresis_db", "values": [0, 1]}]}))
+    cols = param_columns(load_sweep(path))
+    assert cols["policy.a3.hysteresis_db"] == ["hysteresis_db", "policy.a3.hysteresis_db"]
+    # the second keeps its older spelling (key with non-word characters as "_") and gains its
+    # full key path
+    assert cols["policy.strongest-rsrp.hysteresis_db"] == [
+        "policy_strongest_rsrp_hysteresis_db", "policy.strongest-rsrp.hysteresis_db"]
+
+
+def test_error_bars_come_from_intervals_and_stop_at_zero():
+    # worked by hand: value 1 with interval [-0.5, 3] -> bar from 0 to 3 (lengths 1 and 2);
+    # an unknown interval (NaN) draws no bar
+    got = _err(np.array([1.0, 2.0]), np.array([-0.5, np.nan]), np.array([3.0, np.nan]))
+    assert got.tolist() == [[1.0, 0.0], [2.0, 0.0]]
+
+
+def test_tradeoff_lines_follow_sweep_order_with_labelled_points(sweep_dir):
+    df = combined_summary(sweep_dir)
+    axes = swept_axes(sweep_dir, df)
+    assert [a.key for a in axes] == ["policy", KEY]
+    assert axes[1].order == VALUES                 # as the sweep file lists them
+    for term in TERMINALS:
+        d = df[df["terminal"] == term]
+        fig = tradeoff_figure(d, term, axes)
+        vs_value, outage, pingpong, failures = fig.axes[:4]
+        assert vs_value.get_xlabel() == f"{KEY} (dB)"
+        for pol in POLICIES:
+            runs = d[d["policy"] == pol].set_index(KEY).loc[VALUES]    # in sweep order
+            bars = next(c for c in pingpong.containers if c.get_label() == pol)
+            line = bars.lines[0]                   # the errorbar's data line
+            # the line visits the runs in sweep order (x = handovers per hour of each run)
+            assert line.get_xdata().tolist() == runs["handovers_per_hour"].tolist()
+            labels = [t.get_text() for t in pingpong.texts if t.xy[0] in set(line.get_xdata())]
+            assert sorted(labels) == sorted(f"{v:g}" for v in VALUES)
+        for ax in (vs_value, outage, pingpong, failures):
+            for coll in ax.collections:            # error bars: none reaches below zero
+                for seg in coll.get_segments():
+                    assert np.min(seg[:, 1]) >= 0.0
+        # the failure panel's bars are the exact Poisson interval of each run's count (Garwood
+        # 1936; with no failure in 0.5 h: from 0 to -ln(0.025) / 0.5 h = 7.38 per hour)
+        if (d["radio_link_failures"] == 0).all():
+            tops = {round(float(seg[:, 1].max()), 2) for c in failures.collections
+                    for seg in c.get_segments() if np.ptp(seg[:, 1]) > 0}
+            assert tops == {round(-np.log(0.025) / 0.5, 2)}
+        # the outage panel's bars are the summary's outage_fraction_lo/hi (as % of time)
+        assert text_overlaps(fig) == []
+        plt.close(fig)
+
+
+def test_sweep_figures_have_no_overlapping_text(sweep_dir):
+    problems = {}
+
+    def check(fig):
+        bad = text_overlaps(fig)
+        if bad:
+            problems[fig.get_suptitle()] = bad
+        return png_bytes(fig)
+
+    render_sweep(sweep_dir, finish=check)
+    assert not problems, problems
+
+
+def test_sweep_report_holds_figures_tables_and_configurations(sweep_dir):
+    res = _dwell("report", str(sweep_dir))
+    assert res.exit_code == 0, res.output
+    page = Page((sweep_dir / "_report.html").read_text(encoding="utf-8"))
+    # beside the summaries, the page must not join the dataset (README: pandas.read_parquet(DIR)
+    # gives the combined summary)
+    assert len(combined_summary(sweep_dir)) == len(POLICIES) * len(VALUES) * len(TERMINALS)
+    names = {img["data-name"] for img in page.images}
+    assert names == {f"tradeoff_{t}.png" for t in TERMINALS} | {"worst_hour_switches.png"}
+    for img in page.images:
+        assert min(png_size(image_bytes(img))) > 200
+    n_runs = len(POLICIES) * len(VALUES)          # grid mode: every combination
+    for term in TERMINALS:
+        assert page.tables[f"comparison-{term}"] == n_runs
+    assert page.tables["summary-full"] == n_runs * len(TERMINALS)
+    assert page.pre["sweep-file"] == _sweep_text()
+    assert len([k for k in page.pre if k.startswith("configuration-")]) == n_runs
+    assert "no substitute for regulatory, licensing or safety-of-life link analysis" in \
+        page.visible_text
+    assert_self_contained(page)
+
+
+@pytest.mark.parametrize("args, option", [
+    (["--terminal", "nobody"], "--terminal"),
+    (["--policy", "nobody"], "--policy"),
+    (["--hour", "0"], "--hour"),                  # a sweep's figures have no hour to choose
+])
+@pytest.mark.parametrize("command", ["plot", "report"])
+def test_bad_sweep_plot_option_is_one_line_exit_2_and_writes_nothing(sweep_dir, tmp_path,
+                                                                     command, args, option):
+    target = tmp_path / "elsewhere.html"
+    extra = ["-o", str(target)] if command == "report" else []
+    before = sorted(p.name for p in sweep_dir.iterdir())
+    plots_before = sorted((sweep_dir / "_plots").iterdir()) if (sweep_dir / "_plots").exists() \
+        else []
+    res = _dwell(command, str(sweep_dir), *args, *extra)
+    assert res.exit_code == 2, res.output
+    line = res.stderr.strip()
+    assert "\n" not in line and str(sweep_dir) in line and option in line
+    assert sorted(p.name for p in sweep_dir.iterdir()) == before
+    assert (sorted((sweep_dir / "_plots").iterdir()) if (sweep_dir / "_plots").exists()
+            else []) == plots_before
+    assert not target.exists()
+
+
+def test_site_sweep_draws_results_per_site_in_sweep_order(tmp_path):
+    # README: latitude-band sites are evenly spaced from lat_min_deg to lat_max_deg and named
+    # lat+000.0, ...: 0, 30, 60 deg for count = 3
+    (tmp_path / "sites.toml").write_text(tomli_w.dumps({
+        "sweep": {"base": str(QUICK)},
+        "overrides": {"scenario.duration_s": 600},
+        "axis": [{"key": "terminal", "sites": {"kind": "latitude-band", "lat_min_deg": 60,
+                                               "lat_max_deg": 0, "count": 3, "lon_deg": 10}},
+                 {"key": "policy", "values": ["a3"]}]}))
+    out = tmp_path / "out"
+    res = _dwell("sweep", str(tmp_path / "sites.toml"), "-o", str(out), "--workers", "1")
+    assert res.exit_code == 0, res.output
+    seen = {}
+
+    def keep(fig):
+        seen[fig.get_suptitle()] = [t.get_text() for t in fig.axes[0].get_xticklabels()]
+        assert text_overlaps(fig) == []
+        return png_bytes(fig)
+
+    names = [f.name for f in render_sweep(out, finish=keep)]
+    assert "by_site.png" in names
+    ticks = next(v for k, v in seen.items() if k.startswith("Results per swept site"))
+    assert ticks == ["lat+060.0", "lat+030.0", "lat+000.0"]     # the sweep file's order
