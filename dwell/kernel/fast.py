@@ -119,7 +119,7 @@ class FastRun(KernelRun):
             if sw is not None:
                 events.append((sw.time_s, PRIORITY["switch"], "decision", sw))
             if self.policy.loss_aware:
-                loss = self._loss(rows, rows.column_of(sat), sat, e0, horizon)
+                loss = self._loss(rows, rows.column_of(sat), sat, e0, horizon, t_c)
                 if loss is not None:
                     events.append((loss.time_s, PRIORITY["loss"], "loss", loss))
             t_f = first_rlf_s(oos, ins, rows.t_s, s.n310, s.n311, s.t310_s)
@@ -156,18 +156,30 @@ class FastRun(KernelRun):
         yield self._wait_until(t_new)
         return ("handover", t_new, d.target)
 
-    def _loss(self, rows, col, sat, e0, horizon) -> Decision | None:
-        """First end of a serving window at which another satellite is in view."""
-        e = e0
-        while True:
+    def _loss(self, rows, col, sat, e0, horizon, t_c) -> Decision | None:
+        """First loss of the serving satellite at which another satellite is in view: the end
+        of a serving window, or inside the first window the instant its beams stop covering
+        the terminal (the first row of each run of rows with none of its cells measured; the
+        network knows it from ephemeris and the beam layout)."""
+        nocell = (col < 0) & (rows.t_s < e0) & (rows.t_s >= t_c)
+        starts = nocell & ~np.concatenate([[False], nocell[:-1]])
+        pending = sorted(set(rows.t_s[starts].tolist()) | {e0})
+        cover = set(pending) - {e0}
+        while pending:
+            e = pending.pop(0)
             if e > horizon or e >= self.s.duration_s:
                 return None
             r = rows.row_at(e)
             c = self.policy.select(rows, r, e, exclude=sat)
             if c >= 0:
                 return Decision(e, int(rows.sat[r, c]), "loss", rows.k0 + r, int(rows.cell[r, c]))
+            if e in cover:
+                continue
             # nobody in view at that end: try the serving satellite's next window end
             later = np.flatnonzero((col >= 0) & (rows.t_s > e))
             if later.size == 0:
                 return None
-            e = float(rows.end_s[later[0], col[later[0]]])
+            nxt = float(rows.end_s[later[0], col[later[0]]])
+            if nxt not in pending:
+                pending = sorted(pending + [nxt])
+        return None

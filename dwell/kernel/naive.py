@@ -99,6 +99,7 @@ class NaiveRun(KernelRun):
         expiry = None
         weak_from = len(ex.rec.weak)
         t_sw = None                               # scheduled switch of an earth-fixed cell
+        prev_nocell = False                       # the previous row had no serving-satellite cell
         sinr_seen: list[tuple[float, float]] = []
         k = kc
         while True:
@@ -145,6 +146,10 @@ class NaiveRun(KernelRun):
                     expiry, oc, ic = None, 0, 0
             if sat_col >= 0 and rows.end_s[r, sat_col] not in losses:
                 losses.append(float(rows.end_s[r, sat_col]))
+            # inside the first window, the serving satellite's beams stop covering the terminal
+            if sat_col < 0 and t_k < losses_first and not prev_nocell and t_k not in losses:
+                losses.append(t_k)
+            prev_nocell = sat_col < 0 and t_k < losses_first
             t_next = (k + 1) * dt
             events = []
             d = self.policy.step(rows, r, link) if t_k > ex.decided_at else None

@@ -169,6 +169,10 @@ def expand_moving(pair: np.ndarray, sat: np.ndarray, r_sat: np.ndarray, v_sat: n
     gain = beam_gain_dbi(sin_off, layout.aperture_m, frequency_ghz, layout.max_gain_dbi)
     du, dv = dirn[:, 0] - b[:, 0], dirn[:, 1] - b[:, 1]
     measured = du * du + dv * dv <= (bm.MEASURE_RADIUS_SPACINGS * d) ** 2
+    # the satellite covers the terminal while its direction lies in a beam's cell (its nearest
+    # lattice point is a beam); beyond the layout's edge its beams only interfere
+    covered = layout.beam_index(q0, r0) >= 0
+    measured &= covered[pi]
     ref = np.full(pi.size, np.nan)
     if measured.any():
         m = np.flatnonzero(measured)

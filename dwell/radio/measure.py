@@ -38,6 +38,7 @@ from . import noise
 
 _SHADOW = noise.stream_id("shadowing")
 _MEASURE = noise.stream_id("measurement")
+_MEASURE_BEAM = noise.stream_id("measurement-beams")
 _MEASURE_GROUND = noise.stream_id("measurement-ground-cells")
 _NLOS = noise.stream_id("nlos-rows")
 FIELDS = ("sat", "win", "cell", "beam", "rsrp_dbm", "rsrp_raw_dbm", "snr_db", "sinr_db",
@@ -400,9 +401,12 @@ class MeasurementStream:
         meas = rsrp[order]
         mstd = float(self.lp["measurement_noise_db"])
         if mstd > 0:
+            # beam 0 keeps the single-beam draws (key = terminal and satellite); other beams and
+            # ground cells draw on their own streams with the cell folded into the key
             ground = cellmod.is_ground(cell)
-            stream = np.where(ground, _MEASURE_GROUND, _MEASURE + beam * 7919)
-            mkey = np.where(ground, key[pr] * 7919 + (cell - cellmod.GROUND_BASE), key[pr])
+            stream = np.where(ground, _MEASURE_GROUND, np.where(beam > 0, _MEASURE_BEAM, _MEASURE))
+            mkey = np.where(ground, key[pr] * 7919 + (cell - cellmod.GROUND_BASE),
+                            np.where(beam > 0, key[pr] * cellmod.BEAM_STRIDE + beam, key[pr]))
             meas = rsrp[order] + mstd * _normal_streams(self.seed, stream, mkey, kk)
         runs = {"win": win[pr][new_run], "cell": cell[new_run], "first": kk[new_run],
                 "last": np.append(kk[np.flatnonzero(new_run)[1:] - 1], kk[-1:]) if kk.size
