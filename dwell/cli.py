@@ -7,6 +7,7 @@ file, key and value, and exits with status 2 having written nothing.
 from __future__ import annotations
 
 import functools
+import math
 import sys
 from pathlib import Path
 
@@ -99,14 +100,16 @@ def passes(config: Path, out: Path) -> None:
 @click.option("--check/--no-check", default=False, help="Verify accounting invariants.")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1),
               help="Processes to split the terminals over (results do not depend on it).")
+@click.option("--replace", is_flag=True,
+              help="Replace OUTDIR if it holds an earlier run (never a folder of other files).")
 @guarded
-def run(config: Path, out: Path, kernel: str, check: bool, workers: int) -> None:
+def run(config: Path, out: Path, kernel: str, check: bool, workers: int, replace: bool) -> None:
     """Run every terminal under every policy; write tables to a folder."""
     from .io.config import load_scenario
     from .run import execute, summary_text
 
-    check_output(out, folder=True)
-    scen = load_scenario(config, warn=_warn)
+    _check_run_folder(out, replace)
+    scen = load_scenario(config, warn=_warn, load_plugins=True)   # runs policies: loads plug-ins
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
@@ -135,7 +138,13 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float) -
     from .io.config import load_scenario
 
     check_output(out, folder=False)
+    if not math.isfinite(at_s):
+        raise InputError(str(config), "--at-s", at_s, "must be a finite time in seconds")
     scen = load_scenario(config, warn=_warn)
+    duration_s = float(scen.scenario["duration_s"])
+    if not 0.0 <= at_s <= duration_s:
+        raise InputError(str(config), "--at-s", at_s,
+                         f"must lie in the scenario (0..{duration_s:g} s)")
     names = scen.terminal_names()
     if terminal not in names:
         raise InputError(str(config), "--terminal", terminal,
@@ -246,6 +255,20 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
                f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
     for e in rep.errors[:10]:
         click.echo(f"failed: {e}", err=True)
+
+
+def _check_run_folder(out: Path, replace: bool) -> None:
+    """Before any work: ``out`` can be written, and replacing it loses nothing dwell did not
+    write (an existing folder must be an earlier run, and replaced only with --replace)."""
+    from .run import run_folder_problem
+
+    check_output(out, folder=True, replaces=True)
+    if out.is_dir():
+        problem = run_folder_problem(out)
+        if problem:
+            raise OutputError(f"{out}: {problem}")
+        if any(out.iterdir()) and not replace:
+            raise OutputError(f"{out}: holds an earlier dwell run; add --replace to replace it")
 
 
 def _need(outdir: Path, name: str) -> None:

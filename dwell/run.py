@@ -27,6 +27,11 @@ from .io.text import format_table
 from .kernel import RunResult, run_scenario
 
 TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf")
+RUN_TOML_HEAD = "# Fully resolved configuration of this run"
+# what dwell writes into a run folder: the run itself, then `dwell compare` and `dwell plot`
+RUN_FILES = frozenset([f"{t}.parquet" for t in TABLES] +
+                      ["run.toml", "summary.txt", "comparison.txt", "comparison.parquet"])
+PLOTS_FOLDER = "plots"
 
 
 class InvariantError(AssertionError):
@@ -174,8 +179,49 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     return tables
 
 
+def run_folder_problem(folder: str | Path) -> str | None:
+    """Why an existing folder must not be replaced by a run folder, or None if it may be.
+
+    A folder may be replaced when it is empty or is a dwell run folder: its ``run.toml`` starts
+    with the header dwell writes, its ``summary.parquet`` carries dwell's provenance metadata,
+    and it holds nothing else than what dwell writes there (the tables, ``run.toml``,
+    ``summary.txt``, ``comparison.*``, ``plots/*.png`` and the temporary names of atomic writes).
+    Anything else in it is someone's data, which a replacement would delete.  Costs a listing
+    and one Parquet footer read.
+    """
+    folder = Path(folder)
+    entries = sorted(folder.iterdir())
+    if not entries:
+        return None
+    for p in entries:
+        if p.name.startswith(".") and ".tmp" in p.name:
+            continue                                 # an interrupted atomic write of ours
+        if p.name == PLOTS_FOLDER and p.is_dir() and not p.is_symlink():
+            odd = [q for q in p.iterdir() if not (q.suffix == ".png" and q.is_file()
+                                                  or q.name.startswith("."))]
+            if odd:
+                return _not_ours(odd[0].relative_to(folder))
+            continue
+        if p.name not in RUN_FILES or not p.is_file() or p.is_symlink():
+            return _not_ours(p.relative_to(folder))
+    try:
+        head = (folder / "run.toml").read_text(encoding="utf-8").split("\n", 1)[0]
+        from .io.tables import read_metadata
+        marked = "dwell.config_sha256" in read_metadata(folder / "summary.parquet")
+    except Exception:       # unreadable, not Parquet, not ours: the same answer
+        head, marked = "", False
+    if not head.startswith(RUN_TOML_HEAD) or not marked:
+        return "is not a dwell run folder (no run.toml and summary.parquet written by dwell)"
+    return None
+
+
+def _not_ours(name: Path) -> str:
+    return (f"holds {name}, which dwell did not write; refusing to replace the folder "
+            "(choose another -o)")
+
+
 def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> None:
-    with atomic_dir(out_dir) as tmp:
+    with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
         for name in TABLES:
             write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
         (tmp / "run.toml").write_text(run_toml(scen, out_dir))
@@ -206,7 +252,7 @@ def run_toml(scen: Scenario, folder: str | Path | None = None) -> str:
             if ":" in rule and rule.split(":", 1)[0].endswith(".py"):
                 file, cls = rule.split(":", 1)
                 table["rule"] = rel(file) + ":" + cls
-    head = ("# Fully resolved configuration of this run: `dwell run run.toml -o DIR` repeats it.\n"
+    head = (f"{RUN_TOML_HEAD}: `dwell run run.toml -o DIR` repeats it.\n"
             f"# config sha256 {scen.config_hash()}\n")
     return head + tomli_w.dumps(resolved)
 

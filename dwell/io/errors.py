@@ -11,13 +11,18 @@ class InputError(Exception):
     """
 
     def __init__(self, source: str, where: str | None, value: object = None, reason: str = "",
-                 *, show_value: bool = True):
+                 show_value: bool = True):
         self.source = str(source)
         self.where = where
         self.value = value
         self.reason = reason
         self.show_value = show_value
-        super().__init__(self._line())
+        # the arguments themselves, so that ``type(err)(*err.args)`` (simpy re-raising a
+        # process's error) and pickling (worker processes) rebuild the same error
+        super().__init__(self.source, where, value, reason, show_value)
+
+    def __str__(self) -> str:
+        return self._line()
 
     def _line(self) -> str:
         head = self.source

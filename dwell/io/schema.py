@@ -47,6 +47,25 @@ def text(default: Any = REQUIRED, *checks: Check, doc: str = "", choices=None) -
     return Field((str,), default, checks, doc, tuple(choices) if choices else None)
 
 
+NAME_MAX_CHARS = 200   # labels end up in table cells, file names and one-line messages
+
+
+def label_check(v: Any) -> str | None:
+    """A label (terminal, policy, constellation, scenario name): not empty, at most
+    ``NAME_MAX_CHARS`` characters, no control characters (they would break one-line output)."""
+    if not v.strip():
+        return "must not be empty"
+    if len(v) > NAME_MAX_CHARS:
+        return f"is {len(v)} characters long; at most {NAME_MAX_CHARS} are allowed"
+    if any(ord(c) < 32 or ord(c) == 127 for c in v):
+        return "must not contain control characters (newline, tab, ...)"
+    return None
+
+
+def label(default: Any = REQUIRED, doc: str = "") -> Field:
+    return Field((str,), default, (label_check,), doc)
+
+
 def flag(default: Any = REQUIRED, doc: str = "") -> Field:
     return Field((bool,), default, (), doc)
 

@@ -46,7 +46,7 @@ import numpy as np
 
 from ..io.config import read_toml, scenario_from_dict
 from ..io.errors import InputError
-from ..io.schema import REQUIRED, Field, check_table, text
+from ..io.schema import REQUIRED, Field, between, check_table, ge, integer, nonempty, text
 
 SWEEP_KEYS = {
     "base": text(REQUIRED, doc="base scenario file"),
@@ -121,6 +121,11 @@ def apply_override(raw: dict, key: str, value: Any, source: str, where: str) -> 
         if len(parts) < 3:
             raise InputError(source, where, key, f"use {head}.<name>.<key> ('*' for all)")
         tables = raw.get(head, [])
+        if isinstance(tables, dict):      # one [table] written without the double brackets
+            tables = raw[head] = [tables]
+        if not isinstance(tables, list) or not all(isinstance(t, dict) for t in tables):
+            raise InputError(source, where, key, f"the base scenario's {head} must be "
+                             f"[[{head}]] tables")
         targets = _find_named(tables, parts[1], head, source, where)
         if parts[1] == "*":
             targets = [t for t in targets if head != "policy" or _has_key(t, parts[2:])]
@@ -145,33 +150,55 @@ def _has_key(table: dict, rest: list[str]) -> bool:
     return rest[0] in {**policies.COMMON_KEYS, **cls.KEYS}
 
 
+_LAT = (between(-90, 90),)
+_LON = (between(-180, 360),)
+SITE_KEYS = {   # per generator kind: the keys of ``sites = {...}`` (unknown keys are errors)
+    "latitude-band": {
+        "kind": text(REQUIRED, choices=SITE_KINDS),
+        "count": integer(REQUIRED, ge(1), doc="terminals, evenly spread in latitude"),
+        "lat_min_deg": Field((int, float), -60.0, _LAT), "lat_max_deg": Field((int, float), 60.0, _LAT),
+        "lon_deg": Field((int, float), 0.0, _LON),
+    },
+    "random-region": {
+        "kind": text(REQUIRED, choices=SITE_KINDS),
+        "count": integer(REQUIRED, ge(1), doc="terminals, uniform in the box (seeded)"),
+        "seed": integer(0, ge(0)),
+        "lat_min_deg": Field((int, float), -60.0, _LAT), "lat_max_deg": Field((int, float), 60.0, _LAT),
+        "lon_min_deg": Field((int, float), -180.0, _LON),
+        "lon_max_deg": Field((int, float), 180.0, _LON),
+    },
+    "list": {
+        "kind": text(REQUIRED, choices=SITE_KINDS),
+        "sites": Field((list,), REQUIRED, (nonempty,), "terminal tables, one per axis value"),
+    },
+}
+
+
 def generate_sites(spec: dict, template: dict, source: str, where: str) -> list[list[dict]]:
     """Terminal sets of a ``sites`` generator: each returned set is one axis value."""
     kind = spec.get("kind")
     if kind not in SITE_KINDS:
         raise InputError(source, f"{where}.sites.kind", kind, "must be one of " + ", ".join(SITE_KINDS))
+    spec = check_table(spec, SITE_KEYS[kind], source, f"{where}.sites")
     base = {k: v for k, v in template.items() if k not in ("name", "lat_deg", "lon_deg")}
     if kind == "list":
-        sites = spec.get("sites")
-        if not isinstance(sites, list) or not sites:
-            raise InputError(source, f"{where}.sites.sites", sites, "must be a list of terminal tables")
-        return [[{**base, **s}] for s in sites]
-    try:
-        count = int(spec["count"])
-    except (KeyError, TypeError, ValueError):
-        raise InputError(source, f"{where}.sites.count", spec.get("count"),
-                         "must be a whole number") from None
-    if count < 1:
-        raise InputError(source, f"{where}.sites.count", count, "must be >= 1")
+        for i, s in enumerate(spec["sites"]):
+            if not isinstance(s, dict):
+                raise InputError(source, f"{where}.sites.sites[{i + 1}]", s,
+                                 "must be a terminal table")
+        return [[{**base, **s}] for s in spec["sites"]]
+    count = spec["count"]
+    for a, b in (("lat_min_deg", "lat_max_deg"), ("lon_min_deg", "lon_max_deg")):
+        if a in spec and spec[a] > spec[b]:
+            raise InputError(source, f"{where}.sites.{a}", spec[a], f"must not exceed {b}")
     if kind == "latitude-band":
-        lo, hi = float(spec.get("lat_min_deg", -60)), float(spec.get("lat_max_deg", 60))
-        lats = np.linspace(lo, hi, count)
-        lon = float(spec.get("lon_deg", 0.0))
+        lats = np.linspace(float(spec["lat_min_deg"]), float(spec["lat_max_deg"]), count)
+        lon = float(spec["lon_deg"])
         return [[{**base, "name": f"lat{lat:+06.1f}", "lat_deg": float(lat), "lon_deg": lon}]
                 for lat in lats]
-    rng = np.random.default_rng(int(spec.get("seed", 0)))
-    lat = rng.uniform(float(spec.get("lat_min_deg", -60)), float(spec.get("lat_max_deg", 60)), count)
-    lon = rng.uniform(float(spec.get("lon_min_deg", -180)), float(spec.get("lon_max_deg", 180)), count)
+    rng = np.random.default_rng(int(spec["seed"]))
+    lat = rng.uniform(float(spec["lat_min_deg"]), float(spec["lat_max_deg"]), count)
+    lon = rng.uniform(float(spec["lon_min_deg"]), float(spec["lon_max_deg"]), count)
     return [[{**base, "name": f"site{i + 1:03d}", "lat_deg": float(a), "lon_deg": float(b)}]
             for i, (a, b) in enumerate(zip(lat, lon))]
 
@@ -197,6 +224,13 @@ def load_sweep(path: str | Path) -> SweepPlan:
         raise InputError(source, "sweep.base", sw["base"], f"base scenario not found ({base_path})")
     base_raw = read_toml(base_path)
     base_dir = base_path.resolve().parent
+    for head in ("constellation", "terminal", "policy"):
+        if isinstance(base_raw.get(head), dict):   # one [table] stands for [[table]]
+            base_raw[head] = [base_raw[head]]
+        if not isinstance(base_raw.get(head, []), list) or \
+                not all(isinstance(t, dict) for t in base_raw.get(head, [])):
+            raise InputError(str(base_path), head, None, f"must be one or more [[{head}]] tables",
+                             show_value=False)
     overrides = raw.get("overrides", {})
     if not isinstance(overrides, dict):
         raise InputError(source, "overrides", overrides, "must be a table of key = value")
