@@ -15,7 +15,7 @@ import click
 
 from . import __version__
 from .io.atomic import OutputError, check_output
-from .io.errors import InputError
+from .io.errors import InputError, RunFailed
 from .io.text import format_table
 
 
@@ -35,6 +35,9 @@ def guarded(fn):
         except OutputError as exc:
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
+        except RunFailed as exc:
+            click.echo(f"error: {exc}", err=True)
+            sys.exit(1)
     return wrapper
 
 
@@ -108,8 +111,11 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int, replace
     from .io.config import load_scenario
     from .run import execute, summary_text
 
+    from .io.processes import stop_on_signals
+
     _check_run_folder(out, replace)
     scen = load_scenario(config, warn=_warn, load_plugins=True)   # runs policies: loads plug-ins
+    stop_on_signals()        # SIGTERM unwinds: workers killed, temporary folder removed
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
@@ -223,17 +229,28 @@ def bench(quick: bool, out: Path) -> None:
 @click.option("--executor", type=click.Choice(["local", "dask"]), default="local", show_default=True)
 @click.option("--scheduler", default=None, help="Address of an existing dask scheduler.")
 @click.option("--dry-run", is_flag=True, help="Print how many runs and a cost estimate; run nothing.")
+@click.option("--fresh", is_flag=True,
+              help="Clear what dwell wrote in DIR (another sweep's results) and start over.")
 @guarded
 def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: str | None,
-          dry_run: bool) -> None:
+          dry_run: bool, fresh: bool) -> None:
     """Run a parameter sweep; resumes where an interrupted one stopped."""
+    from .io.processes import stop_on_signals
     from .sweep import execute_sweep, load_sweep, pending
-    from .sweep.execute import estimate_cost_s
+    from .sweep.execute import estimate_cost_s, folder_problem
+    from .sweep.spec import check_runs
 
     plan = load_sweep(sweep_file)
+    for msg in plan.notes:
+        _warn(msg)
+    # every run checked as dwell run would, before the first starts (plug-ins only run for real)
+    check_runs(plan, load_plugins=not dry_run, warn=_once(_warn))
     if not dry_run:
         check_output(out, folder=True)
-    left = pending(plan, out) if out.exists() else plan.tasks
+    problem = folder_problem(plan, out, fresh)
+    if problem:
+        raise OutputError(f"{out}: {problem}")
+    left = pending(plan, out) if out.exists() and not fresh else plan.tasks
     n_left = sum(len(v) for v in left.values())
     cost = estimate_cost_s(plan)
     click.echo(f"{len(plan.runs)} runs in {len(plan.tasks)} tasks ({n_left} not yet done); "
@@ -249,12 +266,26 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
             click.echo(f"\rruns: {done + failed}/{total} ({failed} failed{left_txt})   ", err=True,
                        nl=done + failed >= total)
 
+    stop_on_signals()        # SIGTERM unwinds: running workers are killed, the lock released
     rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
-                        progress=show)
+                        progress=show, fresh=fresh)
     click.echo(f"done {rep.done}, failed {rep.failed}, skipped {rep.skipped} (already finished) "
                f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
     for e in rep.errors[:10]:
         click.echo(f"failed: {e}", err=True)
+    if rep.failed:
+        sys.exit(1)          # some runs failed: recorded in DIR/_failed, retried on a restart
+
+
+def _once(warn):
+    """A warn function that says each message once."""
+    seen: set[str] = set()
+
+    def say(msg: str) -> None:
+        if msg not in seen:
+            seen.add(msg)
+            warn(msg)
+    return say
 
 
 def _check_run_folder(out: Path, replace: bool) -> None:

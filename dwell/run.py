@@ -157,13 +157,22 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     if workers == 1:
         tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn)
     else:
-        import multiprocessing as mp
+        from .io.errors import RunFailed
+        from .io.processes import each_in_a_process
         bounds = np.linspace(0, n, workers + 1).round().astype(int)
         groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
         _SHARED["scen"] = scen
-        try:
-            with mp.get_context("fork").Pool(len(groups)) as pool:
-                parts = pool.map(_worker, [(g, kernel, check) for g in groups])
+        parts: list = [None] * len(groups)
+        try:       # each group in a forked process that dies with this one
+            for res in each_in_a_process(_worker, [(g, kernel, check) for g in groups],
+                                         len(groups)):
+                if res.error is not None:
+                    raise res.error
+                if not res.ok:
+                    names = [scen.terminals[k]["name"] for k in groups[res.index]]
+                    raise RunFailed(f"terminals {names[0]}..{names[-1]}: {res.died}; "
+                                    "nothing was written")
+                parts[res.index] = res.value
         finally:
             _SHARED.clear()
         seen: set[str] = set()

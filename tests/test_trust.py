@@ -470,3 +470,349 @@ def test_compare_and_plot_of_a_results_folder_do_not_run_its_plugin(tmp_path):
         result = _invoke(*args)
         assert result.exit_code == 0, (args, result.output, result.exception)
         assert not (tmp_path / "plugin-ran").exists(), args
+
+
+# ---- sweeps: 3, 4, 5, 6, and the sweep parts of 8, 9, 11, 19 ----------------------------------
+
+def _sweep_file(folder: Path, sweep: dict, base: dict | None = None, name: str = "sweep.toml"
+                ) -> Path:
+    _write(folder, base if base is not None else BASE, "base.toml")
+    path = folder / name
+    path.write_text(tomli_w.dumps({"sweep": {"base": "base.toml", **sweep.pop("sweep", {})},
+                                   **sweep}))
+    return path
+
+
+def _dwell(*args, timeout: float = 300) -> "subprocess.CompletedProcess":
+    import subprocess
+    import sys
+    return subprocess.run([sys.executable, "-m", "dwell.cli", *map(str, args)],
+                          capture_output=True, text=True, timeout=timeout)
+
+
+def _summaries(out: Path) -> dict[str, bytes]:
+    return {p.name: p.read_bytes() for p in sorted(out.glob("summary-*.parquet"))}
+
+
+def test_sweep_keys_follow_file_contents_not_paths(tmp_path):
+    from dwell.sweep import load_sweep
+    (tmp_path / "m.csv").write_text("azimuth_deg,elevation_deg\n0,10\n180,20\n")
+    base = _edited(lambda r: r["terminal"][0].update(mask="m.csv"))
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1, 2]}]}, base)
+    before = sorted(r.key for r in load_sweep(sweep).runs)
+    # the same bytes under another name: the same runs (a path is no part of the scenario)
+    (tmp_path / "other.csv").write_bytes((tmp_path / "m.csv").read_bytes())
+    base["terminal"][0]["mask"] = "other.csv"
+    _write(tmp_path, base, "base.toml")
+    assert sorted(r.key for r in load_sweep(sweep).runs) == before
+    # an edited mask: other runs, so a resumed sweep cannot keep results of the old mask
+    (tmp_path / "other.csv").write_text("azimuth_deg,elevation_deg\n0,30\n180,20\n")
+    assert set(r.key for r in load_sweep(sweep).runs).isdisjoint(before)
+
+
+def test_edited_plugin_gives_new_run_keys(tmp_path):
+    from dwell.sweep import load_sweep
+    (tmp_path / "works.py").write_text(PLUGIN_WORKS)
+    base = _edited(lambda r: r.update(policy=[{"name": "plug", "rule": "works.py:Works"}]))
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1, 2]}]}, base)
+    before = {r.key for r in load_sweep(sweep).runs}
+    (tmp_path / "works.py").write_text(PLUGIN_WORKS + "\n# a changed rule\n")
+    assert {r.key for r in load_sweep(sweep).runs}.isdisjoint(before)
+
+
+def test_folder_of_another_sweep_is_refused_unless_fresh(tmp_path):
+    out = tmp_path / "out"
+    first = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1, 2]}]})
+    assert _invoke("sweep", first, "-o", out, "--workers", "1").exit_code == 0
+    kept = _summaries(out)
+    assert len(kept) == 2
+    # other axis values: another sweep; mixing both in one dataset is refused
+    second = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [3, 4]}]},
+                         name="second.toml")
+    listing = _files(tmp_path)
+    _assert_rejected(_invoke("sweep", second, "-o", out), tmp_path, listing, str(out),
+                     "another sweep", "--fresh")
+    assert _summaries(out) == kept
+    # told to start afresh: only the second sweep's runs remain
+    result = _invoke("sweep", second, "-o", out, "--workers", "1", "--fresh")
+    assert result.exit_code == 0, result.output
+    assert len(_summaries(out)) == 2 and set(_summaries(out)).isdisjoint(kept)
+    # a folder of files that are no sweep's is refused too
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "notes.txt").write_text("mine")
+    listing = _files(tmp_path)
+    _assert_rejected(_invoke("sweep", second, "-o", tmp_path / "mine", "--fresh"), tmp_path,
+                     listing, "notes.txt")
+
+
+def test_edited_mask_is_not_resumed_from_stale_results(tmp_path):
+    (tmp_path / "m.csv").write_text("azimuth_deg,elevation_deg\n0,0\n")
+    base = _edited(lambda r: r["terminal"][0].update(mask="m.csv"))
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1]}]}, base)
+    out = tmp_path / "out"
+    assert _invoke("sweep", sweep, "-o", out, "--workers", "1").exit_code == 0
+    # a mask of one point at 90 deg blocks the whole sky (horizon.py: one point is constant)
+    (tmp_path / "m.csv").write_text("azimuth_deg,elevation_deg\n0,90\n")
+    assert _invoke("sweep", sweep, "-o", out).exit_code == 2          # not silently resumed
+    assert _invoke("sweep", sweep, "-o", out, "--workers", "1", "--fresh").exit_code == 0
+    summary = pd.read_parquet(out)
+    assert (summary["none_in_view_fraction"] == 1.0).all()
+
+
+@pytest.mark.parametrize("case", ["walker-T-not-divisible", "bad-mask-file", "bad-tle-checksum"])
+def test_every_run_is_checked_before_the_first_starts(tmp_path, case):
+    if case == "walker-T-not-divisible":
+        # Walker (1984): T = P x S; 205 satellites do not divide into 10 planes
+        axis = {"key": "constellation.shell.satellites", "values": [200, 205]}
+        needles = ["run 2", "satellites", "205", "divisible"]
+    elif case == "bad-mask-file":
+        (tmp_path / "good.csv").write_text("azimuth_deg,elevation_deg\n0,10\n")
+        (tmp_path / "bad.csv").write_text("azimuth_deg,elevation_deg\n0,10\n400,10\n")
+        axis = {"key": "terminal.mill.mask", "values": ["good.csv", "bad.csv"]}
+        needles = ["run 2", "bad.csv", "line 3", "azimuth_deg"]
+    else:
+        l1, l2 = _tle_lines(501)
+        (tmp_path / "good.tle").write_text(f"x\n{l1}\n{l2}\n")
+        (tmp_path / "bad.tle").write_text(f"x\n{l1}\n{l2[:68]}{(int(l2[68]) + 1) % 10}\n")
+        base = _edited(lambda r: r["constellation"].append(
+            {"kind": "tle", "name": "el", "path": "good.tle"}))
+        axis = {"key": "constellation.el.path", "values": ["good.tle", "bad.tle"]}
+        needles = ["run 2", "bad.tle", "line 3", "checksum"]
+    sweep = _sweep_file(tmp_path, {"axis": [axis]},
+                        base if case == "bad-tle-checksum" else None)
+    listing = _files(tmp_path)
+    _assert_rejected(_invoke("sweep", sweep, "-o", tmp_path / "out"), tmp_path, listing,
+                     "sweep.toml", *needles)
+
+
+PLUGIN_DIES = '''
+import os
+import signal
+from dwell.policies.base import Policy
+
+
+class Dies(Policy):
+    """Its process dies as the out-of-memory killer ends one (SIGKILL, no Python error)."""
+
+    rule = "dies"
+    KEYS = {}
+
+    def step(self, rows, r, link):
+        os.kill(os.getpid(), signal.SIGKILL)
+'''
+
+
+def _list_sweep_with(tmp_path: Path, plugin: str, cls: str) -> Path:
+    (tmp_path / "plug.py").write_text(plugin)
+    base = _edited(lambda r: r.update(policy=[{"name": "a3", "rule": "a3"},
+                                             {"name": "plug", "rule": f"plug.py:{cls}"}]))
+    return _sweep_file(tmp_path, {
+        "sweep": {"mode": "list"},
+        "axis": [{"key": "scenario.seed", "values": [1, 2, 3]},
+                 {"key": "policy", "values": ["a3", "plug"]}],
+        "combination": [{"scenario.seed": 1, "policy": "a3"},
+                        {"scenario.seed": 2, "policy": "plug"},
+                        {"scenario.seed": 3, "policy": "a3"}]}, base)
+
+
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_run_whose_process_dies_is_recorded_and_the_sweep_goes_on(tmp_path, workers):
+    import json
+    sweep = _list_sweep_with(tmp_path, PLUGIN_DIES, "Dies")
+    out = tmp_path / "out"
+    proc = _dwell("sweep", sweep, "-o", out, "--workers", workers)
+    # item 4: a sweep with a failed run ends with a non-zero status
+    assert proc.returncode == 1, proc.stderr
+    assert "done 2, failed 1, skipped 0" in proc.stdout, proc.stdout
+    failed = list((out / "_failed").iterdir())
+    assert len(failed) == 1
+    assert "SIGKILL" in json.loads(failed[0].read_text())["error"]
+    assert len(_summaries(out)) == 2
+    again = _dwell("sweep", sweep, "-o", out, "--workers", workers)   # retried, not fatal
+    assert again.returncode == 1 and "done 0, failed 1, skipped 2" in again.stdout, again.stdout
+
+
+PLUGIN_WAITS = '''
+import os
+import pathlib
+import time
+from dwell.policies.base import Policy
+
+
+class Waits(Policy):
+    """Writes its process id beside itself, then computes (sleeps) for a minute."""
+
+    rule = "waits"
+    KEYS = {}
+
+    def step(self, rows, r, link):
+        mark = pathlib.Path(__file__).with_name(f"worker-{os.getpid()}")
+        if not mark.exists():
+            mark.write_text(str(os.getppid()))
+            time.sleep(60)
+        return None
+'''
+
+
+def _alive(pid: int) -> bool:
+    """Whether a process runs (a zombie awaiting its reaper has stopped: POSIX wait(2))."""
+    try:
+        with open(f"/proc/{pid}/stat") as fh:
+            return fh.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except FileNotFoundError:
+        return False
+
+
+def _start(*args):
+    import subprocess
+    import sys
+    return subprocess.Popen([sys.executable, "-m", "dwell.cli", *map(str, args)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+
+
+def _wait_for_workers(folder: Path, proc, count: int, timeout_s: float = 120) -> list[int]:
+    import time
+    deadline = time.monotonic() + timeout_s
+    while True:
+        pids = [int(p.name.split("-")[1]) for p in folder.glob("worker-*")]
+        if len(pids) >= count:
+            return pids
+        assert proc.poll() is None, proc.stderr.read()
+        assert time.monotonic() < deadline, "the workers did not start"
+        time.sleep(0.05)
+
+
+def _assert_all_end(pids: list[int], timeout_s: float = 20) -> None:
+    import signal
+    import time
+    deadline = time.monotonic() + timeout_s
+    while any(_alive(p) for p in pids) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    alive = [p for p in pids if _alive(p)]
+    for p in alive:                     # never leave our own workers behind
+        os.kill(p, signal.SIGKILL)
+    assert not alive, f"workers {alive} outlived their parent"
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs /proc (Linux)")
+@pytest.mark.parametrize("command", ["run", "sweep"])
+@pytest.mark.parametrize("how", ["SIGKILL", "SIGTERM"])
+def test_workers_stop_with_their_parent(tmp_path, command, how):
+    import signal
+    (tmp_path / "plug.py").write_text(PLUGIN_WAITS)
+    base = _edited(lambda r: r.update(policy=[{"name": "plug", "rule": "plug.py:Waits"}]))
+    base["terminal"].append({"name": "second", "lat_deg": -33.5, "lon_deg": 151.0})
+    if command == "run":
+        config = _write(tmp_path, base)
+        proc = _start("run", config, "-o", tmp_path / "out", "--workers", "2")
+    else:
+        sweep = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1, 2]}]},
+                            base)
+        proc = _start("sweep", sweep, "-o", tmp_path / "out", "--workers", "2")
+    try:
+        pids = _wait_for_workers(tmp_path, proc, 2)
+        assert all(int((tmp_path / f"worker-{p}").read_text()) == proc.pid for p in pids)
+        proc.send_signal(getattr(signal, how))          # the parent only, by its id
+        proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    _assert_all_end(pids)
+    if command == "run":     # nothing half-written: no run folder, no temporary one
+        assert not (tmp_path / "out").exists()
+        assert not [p for p in tmp_path.iterdir() if p.name.startswith(".out")]
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs /proc (Linux)")
+def test_second_sweep_in_the_same_folder_is_refused(tmp_path):
+    (tmp_path / "plug.py").write_text(PLUGIN_WAITS)
+    base = _edited(lambda r: r.update(policy=[{"name": "plug", "rule": "plug.py:Waits"}]))
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1]}]}, base)
+    out = tmp_path / "out"
+    first = _start("sweep", sweep, "-o", out, "--workers", "1")
+    try:
+        pids = _wait_for_workers(tmp_path, first, 1)
+        second = _dwell("sweep", sweep, "-o", out, "--workers", "1")
+        assert second.returncode == 2, second.stderr
+        lines = second.stderr.splitlines()
+        assert len(lines) == 1 and "another dwell sweep is running" in lines[0], lines
+        assert str(first.pid) in lines[0]
+    finally:
+        first.kill()
+        first.wait()
+    _assert_all_end(pids)
+
+
+def test_sweep_dry_run_does_not_run_plugins(tmp_path):
+    (tmp_path / "marks.py").write_text(PLUGIN_MARKS.replace('KEYS = {}', 'KEYS = {"margin_db": None}'))
+    base = _edited(lambda r: r.update(policy=[{"name": "a3", "rule": "a3"},
+                                             {"name": "plug", "rule": "marks.py:Marks"}]))
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "policy.*.margin_db", "values": [1.0, 2.0]}]},
+                        base)
+    result = _invoke("sweep", sweep, "-o", tmp_path / "out", "--dry-run")
+    assert result.exit_code == 0, result.output
+    assert "2 runs" in result.stdout                      # the plug-in's KEYS, read, not run
+    assert not (tmp_path / "plugin-ran").exists()
+
+
+@pytest.mark.parametrize("sites, needles", [
+    ({"kind": "latitude-band", "count": 3, "lat_min_deg": "south"},
+     ["axis[1].sites.lat_min_deg", "'south'"]),
+    ({"kind": "list", "sites": [1, 2]}, ["axis[1].sites.sites[1]", "terminal table"]),
+    ({"kind": "latitude-band", "count": 3, "lat_mni_deg": 5}, ["axis[1].sites.lat_mni_deg",
+                                                                "unknown key"]),
+    ({"kind": "random-region", "count": 3, "lon_mix_deg": 5}, ["axis[1].sites.lon_mix_deg"]),
+])
+def test_bad_sites_generator_is_one_line(tmp_path, sites, needles):
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "terminal", "sites": sites}]})
+    listing = _files(tmp_path)
+    _assert_rejected(_invoke("sweep", sweep, "-o", tmp_path / "out", "--dry-run"), tmp_path,
+                     listing, "sweep.toml", *needles)
+
+
+def test_base_with_one_constellation_table_takes_an_axis(tmp_path):
+    # TOML v1.0.0: [constellation] is one table, [[constellation]] an array of them; the
+    # scenario reader accepts both, so must the sweep's axes
+    base = copy.deepcopy(BASE)
+    base["constellation"] = base["constellation"][0]
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "constellation.shell.altitude_km",
+                                             "values": [550, 600]}]}, base)
+    result = _invoke("sweep", sweep, "-o", tmp_path / "out", "--dry-run")
+    assert result.exit_code == 0, (result.output, result.exception)
+    assert "2 runs" in result.stdout
+
+
+# ---- 19. seeds of parts follow the scenario seed on request -----------------------------------
+
+def _canyon_masks(tmp_path: Path, canyon_seed) -> list[np.ndarray]:
+    from dwell.io.config import load_scenario
+    out = []
+    for seed in (1, 2):
+        raw = _edited(lambda r: r["terminal"][0].update(canyon={
+            "width_m": 18, "buildings_per_km": 70, **({} if canyon_seed is None else
+                                                      {"seed": canyon_seed})}))
+        raw["scenario"]["seed"] = seed
+        scen = load_scenario(_write(tmp_path, raw, f"seed{seed}.toml"))
+        az = np.arange(0.0, 360.0, 0.5)
+        out.append(scen.sites[0].mask_deg(az, np.zeros(az.size)))
+    return out
+
+
+def test_canyon_seed_scenario_follows_the_scenario_seed(tmp_path):
+    # a fixed integer keeps one realisation whatever the scenario seed (as before)
+    a, b = _canyon_masks(tmp_path, 11)
+    assert np.array_equal(a, b)
+    # "scenario" (or no seed) draws another street for another scenario seed
+    a, b = _canyon_masks(tmp_path, "scenario")
+    assert not np.array_equal(a, b)
+    assert [np.array_equal(x, y) for x, y in zip(_canyon_masks(tmp_path, None), (a, b))] == \
+        [True, True]
+
+
+def test_seed_sweep_warns_about_a_part_with_its_own_seed(tmp_path):
+    base = _edited(lambda r: r["terminal"][0].update(canyon={"width_m": 18, "seed": 11}))
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "scenario.seed", "values": [1, 2]}]}, base)
+    result = _invoke("sweep", sweep, "-o", tmp_path / "out", "--dry-run")
+    assert result.exit_code == 0, result.output
+    assert "terminal mill canyon" in result.stderr and '"scenario"' in result.stderr

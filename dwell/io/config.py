@@ -34,6 +34,7 @@ from .schema import (
     between,
     check_table,
     flag,
+    follow_scenario,
     ge,
     label,
     gt,
@@ -257,6 +258,7 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
                         source, where)
         spec = {**CONSTELLATION_COMMON, **SOURCES[kind].keys}
         params = check_table(table, spec, source, where)
+        follow_scenario(params)                 # seed = "scenario": as if absent
         if params["name"] is None:
             params["name"] = f"{kind.replace('-', '')}{i + 1}"
         _absolute(params, base_dir, source, where)

@@ -37,3 +37,8 @@ def _short(value: object, limit: int = 60) -> str:
     text = repr(value)
     text = text.replace("\n", "\\n")
     return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+class RunFailed(Exception):
+    """A run could not complete for a reason that is not bad input (a worker process died);
+    the message is one line, and nothing was written."""

@@ -66,6 +66,29 @@ def label(default: Any = REQUIRED, doc: str = "") -> Field:
     return Field((str,), default, (label_check,), doc)
 
 
+FOLLOW_SCENARIO = "scenario"   # a part's seed written so follows the scenario seed
+
+
+def _seed_check(v: Any) -> str | None:
+    if isinstance(v, str):
+        return None if v == FOLLOW_SCENARIO else f"must be a whole number >= 0 or \"{FOLLOW_SCENARIO}\""
+    return None if v >= 0 else "must be >= 0"
+
+
+def seed(doc: str = "random seed (default, or \"scenario\": derived from the scenario seed)"
+         ) -> Field:
+    """A part's own seed: a whole number fixes it (a sweep over scenario.seed then leaves the
+    part unchanged); absent or ``"scenario"`` derives it from the scenario seed.  Checked values
+    hold None for the latter (see :func:`follow_scenario`)."""
+    return Field((int, str), None, (_seed_check,), doc)
+
+
+def follow_scenario(params: dict | None, key: str = "seed") -> None:
+    """Normalise ``seed = "scenario"`` to None (absent): both derive from the scenario seed."""
+    if isinstance(params, dict) and params.get(key) == FOLLOW_SCENARIO:
+        params[key] = None
+
+
 def flag(default: Any = REQUIRED, doc: str = "") -> Field:
     return Field((bool,), default, (), doc)
 

@@ -19,7 +19,7 @@ from typing import Any, Callable
 import numpy as np
 
 from ..io.errors import InputError
-from ..io.schema import REQUIRED, Field, between, gt, number, table
+from ..io.schema import REQUIRED, Field, between, follow_scenario, gt, number, table
 from ..radio.noise import stream_id
 from . import canyon as canyon_mod
 from . import los as los_mod
@@ -47,6 +47,8 @@ TERMINAL_KEYS: dict[str, Field] = {
 
 def check_terminal(params: dict[str, Any], source: str, where: str) -> None:
     """Cross-key checks that need no file access."""
+    follow_scenario(params["canyon"])       # seed = "scenario": derived like an absent seed
+    follow_scenario(params["los"])
     if params["track"] is not None and params["drive"] is not None:
         raise InputError(source, f"{where}.drive", "table",
                          "a terminal follows either a track or a drive, not both")

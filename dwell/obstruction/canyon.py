@@ -56,7 +56,7 @@ import numpy as np
 from scipy.special import cosdg, sindg
 
 from ..io.errors import InputError
-from ..io.schema import REQUIRED, Field, between, ge, gt, number, numbers, text
+from ..io.schema import REQUIRED, Field, between, ge, gt, number, numbers, seed as seed_field, text
 
 LAWS = ("exponential", "deterministic", "lognormal", "pareto", "empirical")
 NOTHING_DEG = -90.0            # mask value where no building blocks
@@ -86,7 +86,7 @@ KEYS: dict[str, Field] = {
     **_law_keys("height", 20.0),
     **_law_keys("length", 25.0),
     "street_length_m": number(2000.0, gt(0), doc="street generated, centred on the start"),
-    "seed": Field((int,), None, (ge(0),), "random seed (default: the scenario seed)"),
+    "seed": seed_field(),
 }
 
 

@@ -40,11 +40,11 @@ import itertools
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
-from ..io.config import read_toml, scenario_from_dict
+from ..io.config import canonical_config, read_toml, scenario_from_dict
 from ..io.errors import InputError
 from ..io.schema import REQUIRED, Field, between, check_table, ge, integer, nonempty, text
 
@@ -85,6 +85,8 @@ class SweepPlan:
     axes: list[Axis]
     runs: list[Run] = field(default_factory=list)
     tasks: dict[str, list[Run]] = field(default_factory=dict)
+    fingerprint: str = ""      # hash of the expanded plan: every run's key and parameters
+    notes: list[str] = field(default_factory=list)   # warnings about the plan itself
 
 
 def _split(path: str) -> list[str]:
@@ -106,7 +108,8 @@ def _find_named(tables: list[dict], name: str, kind: str, source: str, where: st
     return hit
 
 
-def apply_override(raw: dict, key: str, value: Any, source: str, where: str) -> None:
+def apply_override(raw: dict, key: str, value: Any, source: str, where: str,
+                   base_dir: Path | None = None) -> None:
     """Set ``key`` (a dotted path, see the module docstring) in a raw scenario dict."""
     parts = _split(key)
     if not parts:
@@ -128,7 +131,7 @@ def apply_override(raw: dict, key: str, value: Any, source: str, where: str) -> 
                              f"[[{head}]] tables")
         targets = _find_named(tables, parts[1], head, source, where)
         if parts[1] == "*":
-            targets = [t for t in targets if head != "policy" or _has_key(t, parts[2:])]
+            targets = [t for t in targets if head != "policy" or _has_key(t, parts[2:], base_dir)]
             if not targets:
                 raise InputError(source, where, key, "no table has this key")
         for t in targets:
@@ -141,13 +144,20 @@ def apply_override(raw: dict, key: str, value: Any, source: str, where: str) -> 
                      "terminal or policy")
 
 
-def _has_key(table: dict, rest: list[str]) -> bool:
+def _has_key(table: dict, rest: list[str], base_dir: Path | None) -> bool:
+    """Whether a policy table's rule has the key.  A plug-in is not run to find out: its
+    ``KEYS`` are read from its source (or, if not written as a literal, the table's own keys)."""
     from .. import policies
+    rule = table.get("rule", "")
+    if policies.is_plugin(rule):
+        keys = policies.plugin_keys(rule, base_dir)
+        own = set(table) if keys is None else keys
+        return rest[0] in set(policies.COMMON_KEYS) | own
     try:
-        cls = policies.load_rule(table.get("rule", ""), "", "")
+        cls = policies.load_rule(rule, "", "", load_plugins=False)
     except InputError:
         return False
-    return rest[0] in {**policies.COMMON_KEYS, **cls.KEYS}
+    return cls is not None and rest[0] in {**policies.COMMON_KEYS, **cls.KEYS}
 
 
 _LAT = (between(-90, 90),)
@@ -235,7 +245,7 @@ def load_sweep(path: str | Path) -> SweepPlan:
     if not isinstance(overrides, dict):
         raise InputError(source, "overrides", overrides, "must be a table of key = value")
     for k, v in overrides.items():
-        apply_override(base_raw, k, v, source, f"overrides.{k}")
+        apply_override(base_raw, k, v, source, f"overrides.{k}", base_dir)
     axes = []
     axis_tables = raw.get("axis", [])
     if not isinstance(axis_tables, list):
@@ -279,14 +289,37 @@ def load_sweep(path: str | Path) -> SweepPlan:
                                      "no such policy in the base (known: " + ", ".join(base_policies) + ")")
                 policy_names = [value]
             else:
-                apply_override(scen, ax.key, value, source, f"axis[{ai + 1}].key")
+                apply_override(scen, ax.key, value, source, f"axis[{ai + 1}].key", base_dir)
         scen["policy"] = [p for p in scen.get("policy", [])
                           if (p.get("name") or p.get("rule")) in policy_names]
         if not scen["policy"]:
             raise InputError(source, "axis", None, "a combination selects no policy", show_value=False)
         plan.runs.append(Run(params, scen, policy_names))
     _key_runs(plan)
+    plan.notes.extend(_seed_notes(plan, base_raw))
     return plan
+
+
+def _seed_notes(plan: SweepPlan, base: dict) -> list[str]:
+    """Warnings for a sweep over ``scenario.seed`` whose base fixes a seed of its own somewhere
+    (a canyon, line of sight, a random constellation): that part then stays the same in every
+    run; ``seed = "scenario"`` (or no seed) makes it follow the scenario seed."""
+    if not any(a.key == "scenario.seed" for a in plan.axes):
+        return []
+    fixed = []
+    for i, t in enumerate(base.get("constellation", [])):
+        if isinstance(t.get("seed"), int):
+            fixed.append(f"constellation {t.get('name') or i + 1}")
+    for t in base.get("terminal", []):
+        for part in ("canyon", "los"):
+            sub = t.get(part)
+            if isinstance(sub, dict) and isinstance(sub.get("seed"), int):
+                fixed.append(f"terminal {t.get('name')} {part}")
+    if not fixed:
+        return []
+    return [f"warning: {plan.source}: the sweep varies scenario.seed, but "
+            f"{', '.join(fixed)} {'has' if len(fixed) == 1 else 'have'} a seed of its own and "
+            "stays the same in every run (write seed = \"scenario\" to follow the scenario seed)"]
 
 
 def _list_combos(tables: list, axes: list[Axis], source: str) -> list[dict]:
@@ -309,19 +342,34 @@ def _list_combos(tables: list, axes: list[Axis], source: str) -> list[dict]:
     return out
 
 
+def _run_error(plan: SweepPlan, i: int, exc: InputError) -> InputError:
+    """One line naming the sweep file, the run (number and parameters) and the problem."""
+    inner = str(exc)
+    if inner.startswith(plan.source + ": "):     # the run's scenario is named after the sweep
+        inner = inner[len(plan.source) + 2:]
+    params = ", ".join(f"{k}={v}" for k, v in plan.runs[i].params.items())
+    params = params if len(params) <= 120 else params[:117] + "..."
+    return InputError(plan.source, f"run {i + 1} ({params})", None, inner, show_value=False)
+
+
 def _key_runs(plan: SweepPlan) -> None:
-    """Check every run's scenario (errors name the sweep file) and give runs and tasks keys."""
+    """Check every run's scenario (errors name the sweep file) and give runs and tasks keys.
+
+    Keys hash the resolved configuration with every referenced file (masks, tracks, element
+    sets, plug-in rules) replaced by its content's hash, so an edited file gives new keys and a
+    resumed sweep never keeps results of the old content.  Plug-ins are not run here: their
+    parameters enter the key as written (the same in a dry run and a real one).
+    """
     for i, run in enumerate(plan.runs):
         try:
             scen = scenario_from_dict(copy.deepcopy(run.scenario), plan.source, plan.base_dir,
                                       build=False)
         except InputError as exc:
-            raise InputError(plan.source, f"run {i + 1} ({_canonical(run.params)})", None,
-                             str(exc), show_value=False) from None
+            raise _run_error(plan, i, exc) from None
         resolved = scen.resolved()
-        run.key = hashlib.sha256(_canonical(resolved).encode()).hexdigest()[:16]
+        run.key = hashlib.sha256(canonical_config(resolved).encode()).hexdigest()[:16]
         no_policy = {k: v for k, v in resolved.items() if k != "policy"}
-        run.task = hashlib.sha256(_canonical(no_policy).encode()).hexdigest()[:16]
+        run.task = hashlib.sha256(canonical_config(no_policy).encode()).hexdigest()[:16]
         plan.tasks.setdefault(run.task, []).append(run)
     seen: dict[str, int] = {}
     for i, run in enumerate(plan.runs):
@@ -329,3 +377,53 @@ def _key_runs(plan: SweepPlan) -> None:
             raise InputError(plan.source, "axis", None, f"runs {seen[run.key] + 1} and {i + 1} are "
                              "the same scenario (an axis changes nothing?)", show_value=False)
         seen[run.key] = i
+    plan.fingerprint = hashlib.sha256(_canonical(
+        sorted([r.key, r.params] for r in plan.runs)).encode()).hexdigest()
+
+
+def check_runs(plan: SweepPlan, *, load_plugins: bool,
+               warn: Callable[[str], None] | None = None,
+               each: Callable[[Any, int], None] | None = None) -> None:
+    """Check every run as ``dwell run`` would before any starts: referenced files read and
+    checked, cross-key rules (e.g. Walker T divisible by P), constellation and sites built, and
+    with ``load_plugins`` the plug-in rules loaded and their parameters checked.  ``each(scen,
+    i)`` may add checks per task (the memory estimate).  Raises one InputError naming the sweep
+    file, the run and the problem.
+
+    Cost: one build per distinct constellation and per distinct terminal set (cached by their
+    resolved tables), so a sweep of policy or seed values builds once.
+    """
+    from ..io.config import build_constellation
+    from ..obstruction import build_site
+
+    quiet = warn or (lambda msg: None)
+    built_consts: dict[str, Any] = {}
+    built_sites: dict[str, Any] = {}
+    index = {id(r): i for i, r in enumerate(plan.runs)}
+    for task, runs in plan.tasks.items():
+        for run in runs:       # each run's policies (plug-ins loaded when asked)
+            try:
+                scenario_from_dict(copy.deepcopy(run.scenario), plan.source, plan.base_dir,
+                                   build=False, load_plugins=load_plugins)
+            except InputError as exc:
+                raise _run_error(plan, index[id(run)], exc) from None
+        i = index[id(runs[0])]
+        try:
+            scen = scenario_from_dict(copy.deepcopy(runs[0].scenario), plan.source,
+                                      plan.base_dir, build=False)
+            sc = scen.scenario
+            const_key = canonical_config({"c": scen.constellations, "start": sc["start"],
+                                          "seed": sc["seed"]})
+            if const_key not in built_consts:
+                built_consts[const_key] = build_constellation(scen, quiet)
+            scen.constellation = built_consts[const_key]
+            for k, t in enumerate(scen.terminals):
+                site_key = canonical_config({"t": t, "k": k, "start": sc["start"],
+                                             "duration_s": sc["duration_s"], "seed": sc["seed"]})
+                if site_key not in built_sites:
+                    built_sites[site_key] = build_site(t, scen, k, quiet)
+                scen.sites.append(built_sites[site_key])
+            if each is not None:
+                each(scen, i)
+        except InputError as exc:
+            raise _run_error(plan, i, exc) from None
