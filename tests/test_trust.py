@@ -15,8 +15,13 @@ minute in all on two cores.
 from __future__ import annotations
 
 import copy
+import json
 import math
 import os
+import signal
+import subprocess
+import sys
+import time
 import tomllib
 from pathlib import Path
 
@@ -483,9 +488,7 @@ def _sweep_file(folder: Path, sweep: dict, base: dict | None = None, name: str =
     return path
 
 
-def _dwell(*args, timeout: float = 300) -> "subprocess.CompletedProcess":
-    import subprocess
-    import sys
+def _dwell(*args, timeout: float = 300) -> subprocess.CompletedProcess:
     return subprocess.run([sys.executable, "-m", "dwell.cli", *map(str, args)],
                           capture_output=True, text=True, timeout=timeout)
 
@@ -617,7 +620,6 @@ def _list_sweep_with(tmp_path: Path, plugin: str, cls: str) -> Path:
 
 @pytest.mark.parametrize("workers", ["1", "2"])
 def test_run_whose_process_dies_is_recorded_and_the_sweep_goes_on(tmp_path, workers):
-    import json
     sweep = _list_sweep_with(tmp_path, PLUGIN_DIES, "Dies")
     out = tmp_path / "out"
     proc = _dwell("sweep", sweep, "-o", out, "--workers", workers)
@@ -664,14 +666,11 @@ def _alive(pid: int) -> bool:
 
 
 def _start(*args):
-    import subprocess
-    import sys
     return subprocess.Popen([sys.executable, "-m", "dwell.cli", *map(str, args)],
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
 
 
 def _wait_for_workers(folder: Path, proc, count: int, timeout_s: float = 120) -> list[int]:
-    import time
     deadline = time.monotonic() + timeout_s
     while True:
         pids = [int(p.name.split("-")[1]) for p in folder.glob("worker-*")]
@@ -683,8 +682,6 @@ def _wait_for_workers(folder: Path, proc, count: int, timeout_s: float = 120) ->
 
 
 def _assert_all_end(pids: list[int], timeout_s: float = 20) -> None:
-    import signal
-    import time
     deadline = time.monotonic() + timeout_s
     while any(_alive(p) for p in pids) and time.monotonic() < deadline:
         time.sleep(0.05)
@@ -698,7 +695,6 @@ def _assert_all_end(pids: list[int], timeout_s: float = 20) -> None:
 @pytest.mark.parametrize("command", ["run", "sweep"])
 @pytest.mark.parametrize("how", ["SIGKILL", "SIGTERM"])
 def test_workers_stop_with_their_parent(tmp_path, command, how):
-    import signal
     (tmp_path / "plug.py").write_text(PLUGIN_WAITS)
     base = _edited(lambda r: r.update(policy=[{"name": "plug", "rule": "plug.py:Waits"}]))
     base["terminal"].append({"name": "second", "lat_deg": -33.5, "lon_deg": 151.0})
