@@ -882,3 +882,113 @@ def test_culmination_matches_dense_sampling_up_to_the_zenith(tmp_path):
     # about 1e-5 deg (tests/test_geometry_reference.py, grazing-pass case).
     assert worst_el < 1e-3, worst_el
     assert worst_t < 0.05, worst_t
+
+
+# ---- 7. estimate before work ------------------------------------------------------------------
+
+def _limited(*args, limit_b: int = 3 * 2**30):
+    """``dwell ARGS`` in a process whose address space is capped (POSIX setrlimit), so that a
+    run that would grow without bound fails fast instead of loading the machine."""
+    import resource
+
+    def cap():
+        resource.setrlimit(resource.RLIMIT_AS, (limit_b, limit_b))
+    return subprocess.run([sys.executable, "-m", "dwell.cli", *map(str, args)], text=True,
+                          capture_output=True, timeout=300, preexec_fn=cap)
+
+
+@pytest.mark.parametrize("case, edit, needles", [
+    ("10**9 satellites", lambda r: r["constellation"][0].update(satellites=10**9, planes=1000),
+     ["constellation[1].satellites", "memory", "--force"]),
+    ("1 us measurements", lambda r: r["scenario"].update(measurement_period_s=1e-6),
+     ["scenario.measurement_period_s", "memory", "--force"]),
+    ("1e9 buildings per km", lambda r: r["terminal"][0].update(
+        canyon={"width_m": 18.0, "buildings_per_km": 1e9}),
+     ["terminal[1].canyon.buildings_per_km", "1000"]),
+    ("1e9 m/s drive", lambda r: r["terminal"][0].update(drive={"speed_m_s": 1e9}),
+     ["terminal[1].drive.speed_m_s", "track_max_speed_m_s"]),
+    # the issue's 50,000 satellites x 1,000 terminals x a year
+    ("a year of 1000 terminals", lambda r: (
+        r["constellation"][0].update(satellites=50000, planes=100),
+        r["scenario"].update(duration_s=365 * 86400),
+        r.update(terminal=[{"name": f"t{i}", "lat_deg": i % 100 - 50.0, "lon_deg": i % 360.0}
+                           for i in range(1000)])),
+     ["constellation[1].satellites", "scenario.duration_s", "memory", "--force"]),
+])
+def test_absurd_sizes_are_refused_before_work(tmp_path, case, edit, needles):
+    config = _write(tmp_path, _edited(edit))
+    listing = _files(tmp_path)
+    commands = [("run", config, "-o", tmp_path / "out")]
+    if "measurements" not in case:     # dwell passes measures nothing: a 1 us period is no cost
+        commands.append(("passes", config, "-o", tmp_path / "p.parquet"))
+    for command in commands:
+        proc = _limited(*command)
+        assert proc.returncode == 2, (case, command[0], proc.stderr[-2000:])
+        lines = proc.stderr.splitlines()
+        assert len(lines) == 1 and lines[0].startswith("error: "), lines[-3:]
+        for needle in needles:
+            assert needle in lines[0], (needle, lines[0])
+        assert _files(tmp_path) == listing
+
+
+def test_force_goes_ahead_where_the_estimate_refuses(tmp_path, monkeypatch):
+    import dwell.io.estimate as estimate
+    config = _write(tmp_path, BASE)
+    monkeypatch.setattr(estimate, "available_memory_b", lambda: 1e6)   # a 1 MB machine
+    listing = _files(tmp_path)
+    _assert_rejected(_invoke("run", config, "-o", tmp_path / "out"), tmp_path, listing,
+                     "memory", "--force")
+    result = _invoke("run", config, "-o", tmp_path / "out", "--force")
+    assert result.exit_code == 0, result.output
+    assert (tmp_path / "out" / "summary.parquet").is_file()
+
+
+def test_estimated_fraction_in_view_matches_monte_carlo():
+    # The estimate's cap fraction against Monte Carlo of the closed form's own model: uniform
+    # points on a shell of radius r, counted when above 25 deg elevation at a site on a sphere
+    # of the equatorial radius (elevation from the site-to-point vector and the local up).
+    from dwell.io.estimate import EARTH_RADIUS_KM, cap
+    rng = np.random.default_rng(1)
+    n = 400_000
+    for alt_km, floor_deg in ((560.0, 25.0), (1200.0, 10.0)):
+        p = rng.normal(size=(n, 3))
+        p *= (EARTH_RADIUS_KM + alt_km) / np.linalg.norm(p, axis=1)[:, None]
+        site = np.array([0.0, 0.0, EARTH_RADIUS_KM])
+        d = p - site
+        el = np.degrees(np.arcsin(d[:, 2] / np.linalg.norm(d, axis=1)))
+        mc = float(np.mean(el > floor_deg))
+        f, _, _ = cap(alt_km, floor_deg)
+        # 4 binomial standard errors
+        assert f == pytest.approx(mc, abs=4 * math.sqrt(mc * (1 - mc) / n))
+
+
+def test_estimated_latitude_weight_matches_monte_carlo():
+    # Monte Carlo of circular orbits of one inclination with uniform phase: the share of
+    # satellites inside a latitude band, relative to a uniform sphere's share of that band
+    from dwell.io.estimate import latitude_weight
+    rng = np.random.default_rng(2)
+    n = 400_000
+    inc = math.radians(53.0)
+    u = rng.uniform(0.0, 2 * math.pi, n)                     # argument of latitude
+    lat = np.arcsin(np.sin(inc) * np.sin(u))                 # spherical trigonometry
+    psi = math.radians(9.0)
+    for lat0 in (0.0, 30.0, 50.0, 60.0, 80.0):
+        lo, hi = math.radians(lat0) - psi, math.radians(lat0) + psi
+        share = float(np.mean((lat >= lo) & (lat <= hi)))
+        uniform = (math.sin(min(hi, math.pi / 2)) - math.sin(max(lo, -math.pi / 2))) / 2
+        se = math.sqrt(max(share, 1e-9) * (1 - share) / n) / uniform
+        assert latitude_weight(lat0, psi, 53.0) == pytest.approx(share / uniform,
+                                                                 abs=4 * se + 1e-12)
+
+
+def test_sweep_refuses_a_task_that_cannot_fit(tmp_path):
+    sweep = _sweep_file(tmp_path, {"axis": [{"key": "constellation.shell.satellites",
+                                             "values": [200, 10**9]}]})
+    listing = _files(tmp_path)
+    proc = _limited("sweep", sweep, "-o", tmp_path / "out")
+    assert proc.returncode == 2, proc.stderr[-2000:]
+    lines = proc.stderr.splitlines()
+    assert len(lines) == 1, lines[-3:]
+    for needle in ("sweep.toml", "run 2", "constellation[1].satellites", "--force"):
+        assert needle in lines[0], (needle, lines[0])
+    assert _files(tmp_path) == listing

@@ -285,9 +285,18 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
 
     out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
     if build:
-        out.constellation = build_constellation(out, warn)
-        out.sites = [obstruction.build_site(t, out, i, warn) for i, t in enumerate(terms)]
+        build_scenario(out, warn)
     return out
+
+
+def build_scenario(scen: Scenario, warn: Callable[[str], None] | None = None) -> Scenario:
+    """Build a checked scenario's satellites and sites (reads element files, masks, tracks;
+    generates canyons).  Returns the same object.  Cost: one SGP4 initialisation per satellite
+    and each site's files or generated buildings (see dwell.io.estimate for how much)."""
+    warn = warn or (lambda msg: None)
+    scen.constellation = build_constellation(scen, warn)
+    scen.sites = [obstruction.build_site(t, scen, i, warn) for i, t in enumerate(scen.terminals)]
+    return scen
 
 
 def build_constellation(scen: Scenario, warn: Callable[[str], None]) -> Constellation:

@@ -387,8 +387,8 @@ def check_runs(plan: SweepPlan, *, load_plugins: bool,
     """Check every run as ``dwell run`` would before any starts: referenced files read and
     checked, cross-key rules (e.g. Walker T divisible by P), constellation and sites built, and
     with ``load_plugins`` the plug-in rules loaded and their parameters checked.  ``each(scen,
-    i)`` may add checks per task (the memory estimate).  Raises one InputError naming the sweep
-    file, the run and the problem.
+    n_policies)`` may add checks per task before anything is built (the memory estimate).
+    Raises one InputError naming the sweep file, the run and the problem.
 
     Cost: one build per distinct constellation and per distinct terminal set (cached by their
     resolved tables), so a sweep of policy or seed values builds once.
@@ -411,6 +411,8 @@ def check_runs(plan: SweepPlan, *, load_plugins: bool,
         try:
             scen = scenario_from_dict(copy.deepcopy(runs[0].scenario), plan.source,
                                       plan.base_dir, build=False)
+            if each is not None:
+                each(scen, sum(len(r.scenario["policy"]) for r in runs))
             sc = scen.scenario
             const_key = canonical_config({"c": scen.constellations, "start": sc["start"],
                                           "seed": sc["seed"]})
@@ -423,7 +425,5 @@ def check_runs(plan: SweepPlan, *, load_plugins: bool,
                 if site_key not in built_sites:
                     built_sites[site_key] = build_site(t, scen, k, quiet)
                 scen.sites.append(built_sites[site_key])
-            if each is not None:
-                each(scen, i)
         except InputError as exc:
             raise _run_error(plan, i, exc) from None
