@@ -163,9 +163,9 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
         groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
         _SHARED["scen"] = scen
         parts: list = [None] * len(groups)
+        outcomes = each_in_a_process(_worker, [(g, kernel, check) for g in groups], len(groups))
         try:       # each group in a forked process that dies with this one
-            for res in each_in_a_process(_worker, [(g, kernel, check) for g in groups],
-                                         len(groups)):
+            for res in outcomes:
                 if res.error is not None:
                     raise res.error
                 if not res.ok:
@@ -174,6 +174,7 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
                                     "nothing was written")
                 parts[res.index] = res.value
         finally:
+            outcomes.close()         # kills the groups still running, if any
             _SHARED.clear()
         seen: set[str] = set()
         for _, messages in parts:     # every worker propagates: report each warning once

@@ -741,7 +741,8 @@ def test_second_sweep_in_the_same_folder_is_refused(tmp_path):
 
 
 def test_sweep_dry_run_does_not_run_plugins(tmp_path):
-    (tmp_path / "marks.py").write_text(PLUGIN_MARKS.replace('KEYS = {}', 'KEYS = {"margin_db": None}'))
+    (tmp_path / "marks.py").write_text(
+        PLUGIN_MARKS.replace('KEYS = {}', 'KEYS = {"margin_db": None}'))
     base = _edited(lambda r: r.update(policy=[{"name": "a3", "rule": "a3"},
                                              {"name": "plug", "rule": "marks.py:Marks"}]))
     sweep = _sweep_file(tmp_path, {"axis": [{"key": "policy.*.margin_db", "values": [1.0, 2.0]}]},

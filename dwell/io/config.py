@@ -15,6 +15,7 @@ work starts, and raises :class:`~dwell.errors.InputError` naming the file, key a
 from __future__ import annotations
 
 import copy
+import functools
 import hashlib
 import json
 import re
@@ -148,13 +149,25 @@ def _canonical(resolved: dict) -> str:
         if isinstance(obj, list):
             return [walk(v, key) for v in obj]
         if key in PATH_KEYS and isinstance(obj, str) and Path(obj).is_file():
-            return "sha256:" + hashlib.sha256(Path(obj).read_bytes()).hexdigest()
+            return "sha256:" + _file_digest(obj)
         if key == "rule" and policies.is_plugin(obj):       # a plug-in: its code, not its path
             file, cls = obj.split(":", 1)
             if Path(file).is_file():
-                return "sha256:" + hashlib.sha256(Path(file).read_bytes()).hexdigest() + ":" + cls
+                return "sha256:" + _file_digest(file) + ":" + cls
         return obj
     return json.dumps(walk(resolved), sort_keys=True, default=str)
+
+
+def _file_digest(path: str) -> str:
+    """sha256 of a file's content, read once per (path, modification time, size): a sweep
+    keys many runs on the same element file."""
+    st = Path(path).stat()
+    return _digest(str(Path(path).resolve()), st.st_mtime_ns, st.st_size)
+
+
+@functools.lru_cache(maxsize=256)
+def _digest(path: str, mtime_ns: int, size: int) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def read_toml(path: Path) -> dict[str, Any]:

@@ -45,7 +45,8 @@ def worker_setup(parent_pid: int) -> None:
     """What every worker does first: die with the parent, leave Ctrl-C to the parent."""
     die_with_parent(parent_pid)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    for sig in (signal.SIGTERM, signal.SIGHUP):     # not the parent's unwinding handlers
+        signal.signal(sig, signal.SIG_DFL)
 
 
 class Stopped(SystemExit):

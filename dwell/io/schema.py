@@ -71,7 +71,8 @@ FOLLOW_SCENARIO = "scenario"   # a part's seed written so follows the scenario s
 
 def _seed_check(v: Any) -> str | None:
     if isinstance(v, str):
-        return None if v == FOLLOW_SCENARIO else f"must be a whole number >= 0 or \"{FOLLOW_SCENARIO}\""
+        return None if v == FOLLOW_SCENARIO else \
+            f"must be a whole number >= 0 or \"{FOLLOW_SCENARIO}\""
     return None if v >= 0 else "must be >= 0"
 
 

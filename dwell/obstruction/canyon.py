@@ -56,7 +56,8 @@ import numpy as np
 from scipy.special import cosdg, sindg
 
 from ..io.errors import InputError
-from ..io.schema import REQUIRED, Field, between, ge, gt, le, number, numbers, seed as seed_field, text
+from ..io.schema import REQUIRED, Field, between, ge, gt, le, number, numbers, text
+from ..io.schema import seed as seed_field
 
 LAWS = ("exponential", "deterministic", "lognormal", "pareto", "empirical")
 NOTHING_DEG = -90.0            # mask value where no building blocks

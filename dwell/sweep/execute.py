@@ -33,7 +33,7 @@ import os
 import re
 import shutil
 import time
-from contextlib import contextmanager
+from contextlib import closing, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Iterator
@@ -268,12 +268,13 @@ def _clear(out: Path, everything: bool) -> None:
                     p.unlink(missing_ok=True)
 
 
-def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1, executor: str = "local",
-                  scheduler: str | None = None, progress: Callable[[int, int, int, float], None] | None = None,
+def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1,
+                  executor: str = "local", scheduler: str | None = None,
+                  progress: Callable[[int, int, int, float], None] | None = None,
                   fresh: bool = False) -> SweepReport:
     """Run the plan's unfinished runs into ``out_dir`` (see the module docstring); ``fresh``
-    first clears everything dwell wrote there (and so starts over).  Raises OutputError when the folder
-    holds something else or another sweep is running in it."""
+    first clears everything dwell wrote there (and so starts over).  Raises OutputError when
+    the folder holds something else or another sweep is running in it."""
     out = Path(out_dir)
     problem = folder_problem(plan, out, fresh)
     if problem:
@@ -340,14 +341,15 @@ def _run_local(jobs, plan, out, columns, workers, note) -> None:
     dies (out of memory) is recorded as failed and the others go on."""
     from ..io.processes import each_in_a_process
     payloads = [(task, runs, str(plan.base_dir), str(out), columns) for task, runs in jobs]
-    for res in each_in_a_process(_task_job, payloads, workers):
-        runs = jobs[res.index][1]
-        if res.ok:
-            note(res.value)
-        elif res.error is not None:
-            note(record_failure(out, runs, f"{type(res.error).__name__}: {res.error}"))
-        else:
-            note(record_failure(out, runs, f"{res.died} (task {jobs[res.index][0]})"))
+    with closing(each_in_a_process(_task_job, payloads, workers)) as outcomes:
+        for res in outcomes:
+            runs = jobs[res.index][1]
+            if res.ok:
+                note(res.value)
+            elif res.error is not None:
+                note(record_failure(out, runs, f"{type(res.error).__name__}: {res.error}"))
+            else:
+                note(record_failure(out, runs, f"{res.died} (task {jobs[res.index][0]})"))
 
 
 def _run_dask(jobs, plan, out, columns, workers, scheduler, note) -> None:

@@ -166,14 +166,16 @@ SITE_KEYS = {   # per generator kind: the keys of ``sites = {...}`` (unknown key
     "latitude-band": {
         "kind": text(REQUIRED, choices=SITE_KINDS),
         "count": integer(REQUIRED, ge(1), doc="terminals, evenly spread in latitude"),
-        "lat_min_deg": Field((int, float), -60.0, _LAT), "lat_max_deg": Field((int, float), 60.0, _LAT),
+        "lat_min_deg": Field((int, float), -60.0, _LAT),
+        "lat_max_deg": Field((int, float), 60.0, _LAT),
         "lon_deg": Field((int, float), 0.0, _LON),
     },
     "random-region": {
         "kind": text(REQUIRED, choices=SITE_KINDS),
         "count": integer(REQUIRED, ge(1), doc="terminals, uniform in the box (seeded)"),
         "seed": integer(0, ge(0)),
-        "lat_min_deg": Field((int, float), -60.0, _LAT), "lat_max_deg": Field((int, float), 60.0, _LAT),
+        "lat_min_deg": Field((int, float), -60.0, _LAT),
+        "lat_max_deg": Field((int, float), 60.0, _LAT),
         "lon_min_deg": Field((int, float), -180.0, _LON),
         "lon_max_deg": Field((int, float), 180.0, _LON),
     },
