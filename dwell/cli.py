@@ -7,6 +7,7 @@ file, key and value, and exits with status 2 having written nothing.
 from __future__ import annotations
 
 import functools
+import math
 import sys
 from pathlib import Path
 
@@ -14,7 +15,7 @@ import click
 
 from . import __version__
 from .io.atomic import OutputError, check_output
-from .io.errors import InputError
+from .io.errors import InputError, RunFailed
 from .io.text import format_table
 from .progress import Progress
 
@@ -35,7 +36,31 @@ def guarded(fn):
         except OutputError as exc:
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
+        except RunFailed as exc:
+            click.echo(f"error: {exc}", err=True)
+            sys.exit(1)
+        except MemoryError:
+            click.echo("error: ran out of memory (see the estimate: dwell refuses runs larger "
+                       "than the available memory unless --force is given)", err=True)
+            sys.exit(1)
     return wrapper
+
+
+FORCE = click.option("--force", is_flag=True,
+                     help="Go ahead even if the estimate says the run does not fit in memory.")
+
+
+def _checked_cost(scen, force: bool, *, workers: int = 1, kernel: str = "fast",
+                  measure: bool = True):
+    """Estimate before any work: refuse what cannot fit in memory (one line naming the keys
+    that drive it) unless ``force``; say the cost on stderr when it is large."""
+    from .io.estimate import estimate_run, refuse_if_too_big
+
+    est = estimate_run(scen, workers=workers, kernel=kernel, measure=measure)
+    refuse_if_too_big(est, scen.source, force=force)
+    if est.cpu_s > 600 or est.memory_b > 4e9:
+        _warn(f"note: this run needs {est.describe()} (estimate)")
+    return est
 
 
 @click.group()
@@ -49,16 +74,19 @@ def main() -> None:
 @click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("-o", "--output", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
               help="Parquet file for the pass table.")
+@FORCE
 @guarded
-def passes(config: Path, out: Path) -> None:
+def passes(config: Path, out: Path, force: bool) -> None:
     """Find every visibility window (pass) of every terminal; write them to Parquet."""
-    from .io.config import load_scenario
+    from .io.config import build_scenario, load_scenario
     from .io.outputs import pass_summary, passes_frame, visible_frame
     from .io.tables import write_frame
     from .orbits.geometry import Geometry
 
     check_output(out, folder=False)
-    scen = load_scenario(config, warn=_warn)
+    scen = load_scenario(config, warn=_warn, build=False)
+    _checked_cost(scen, force, measure=False)
+    build_scenario(scen, _warn)
     geo = Geometry(scen, warn=_warn, slots=False)
     with Progress("geometry", "chunks", rate_unit="chunk") as bar:
         geo.run_all(bar.to)
@@ -87,15 +115,23 @@ def passes(config: Path, out: Path) -> None:
 @click.option("--trace", "trace", default=None, metavar="TERMINAL",
               help="Also write trace.parquet: the terminal's measurements of its serving cell "
                    "and strongest neighbours at every instant, per policy.")
+@click.option("--replace", is_flag=True,
+              help="Replace OUTDIR if it holds an earlier run (never a folder of other files).")
+@FORCE
 @guarded
 def run(config: Path, out: Path, kernel: str, check: bool, workers: int,
-        trace: str | None) -> None:
+        trace: str | None, replace: bool, force: bool) -> None:
     """Run every terminal under every policy; write tables to a folder."""
-    from .io.config import load_scenario
+    from .io.config import build_scenario, load_scenario
+    from .io.processes import stop_on_signals
     from .run import execute, summary_text
 
-    check_output(out, folder=True)
-    scen = load_scenario(config, warn=_warn)
+    _check_run_folder(out, replace)
+    # runs policies, so plug-ins are loaded; nothing is built before the estimate
+    scen = load_scenario(config, warn=_warn, load_plugins=True, build=False)
+    _checked_cost(scen, force, workers=workers, kernel=kernel)
+    build_scenario(scen, _warn)
+    stop_on_signals()        # SIGTERM unwinds: workers killed, temporary folder removed
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
                          show_value=False)
@@ -118,17 +154,32 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int,
               help="Azimuth step of the exported mask.")
 @click.option("--at-s", default=0.0, show_default=True, type=float,
               help="Scenario time (s) of the export, for a terminal that drives.")
+@FORCE
 @guarded
-def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float) -> None:
+def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float,
+         force: bool) -> None:
     """Export the elevation mask a terminal sees (one realisation of its canyon)."""
     import numpy as np
 
     from .analysis.plots import mask_plot
     from .io.atomic import write_text
-    from .io.config import load_scenario
+    from .io.config import build_scenario, load_scenario
+    from .io.estimate import Estimate, estimate_run, refuse_if_too_big
 
     check_output(out, folder=False)
-    scen = load_scenario(config, warn=_warn)
+    if not math.isfinite(at_s):
+        raise InputError(str(config), "--at-s", at_s, "must be a finite time in seconds")
+    scen = load_scenario(config, warn=_warn, build=False)
+    # the export builds the satellites and the sites only: those parts must fit
+    parts = [p for p in estimate_run(scen, measure=False).parts
+             if p.what.startswith(("interpreter", "street canyon")) or "satellites" in p.what]
+    refuse_if_too_big(Estimate(sum(p.bytes for p in parts), 0.0, parts), scen.source,
+                      force=force)
+    build_scenario(scen, _warn)
+    duration_s = float(scen.scenario["duration_s"])
+    if not 0.0 <= at_s <= duration_s:
+        raise InputError(str(config), "--at-s", at_s,
+                         f"must lie in the scenario (0..{duration_s:g} s)")
     names = scen.terminal_names()
     if terminal not in names:
         raise InputError(str(config), "--terminal", terminal,
@@ -258,32 +309,80 @@ def bench(quick: bool, out: Path) -> None:
 @click.option("--executor", type=click.Choice(["local", "dask"]), default="local", show_default=True)
 @click.option("--scheduler", default=None, help="Address of an existing dask scheduler.")
 @click.option("--dry-run", is_flag=True, help="Print how many runs and a cost estimate; run nothing.")
+@click.option("--fresh", is_flag=True,
+              help="Clear what dwell wrote in DIR (another sweep's results) and start over.")
+@FORCE
 @guarded
 def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: str | None,
-          dry_run: bool) -> None:
+          dry_run: bool, fresh: bool, force: bool) -> None:
     """Run a parameter sweep; resumes where an interrupted one stopped."""
+    from .io.estimate import estimate_run, refuse_if_too_big
+    from .io.processes import stop_on_signals
     from .sweep import execute_sweep, load_sweep, pending
-    from .sweep.execute import estimate_cost_s
+    from .sweep.execute import folder_problem, task_estimates
+    from .sweep.spec import check_runs
 
     plan = load_sweep(sweep_file)
+    for msg in plan.notes:
+        _warn(msg)
+
+    def fits(scen, n_policies: int) -> None:      # each task alone must fit in memory
+        refuse_if_too_big(estimate_run(scen, n_policies=n_policies), plan.source, force=force,
+                          what="this run's task")
+
+    # every run checked as dwell run would, before the first starts (plug-ins only run for real)
+    check_runs(plan, load_plugins=not dry_run, warn=_once(_warn), each=fits)
     if not dry_run:
         check_output(out, folder=True)
-    left = pending(plan, out) if out.exists() else plan.tasks
+    problem = folder_problem(plan, out, fresh)
+    if problem:
+        raise OutputError(f"{out}: {problem}")
+    left = pending(plan, out) if out.exists() and not fresh else plan.tasks
     n_left = sum(len(v) for v in left.values())
-    cost = estimate_cost_s(plan)
+    estimates = task_estimates(plan)
+    cost = sum(e.cpu_s for t, e in estimates.items() if t in left)
+    peak = max((e.memory_b for e in estimates.values()), default=0.0)
     click.echo(f"{len(plan.runs)} runs in {len(plan.tasks)} tasks ({n_left} not yet done); "
                f"about {cost / 60:.1f} CPU-minutes, {cost / 60 / max(1, workers):.1f} minutes "
-               f"on {workers} worker(s) (rough estimate)")
+               f"on {workers} worker(s), up to {peak / 1e9:.2g} GB per task (estimate)")
     if dry_run:
         return
+    stop_on_signals()        # SIGTERM unwinds: running workers are killed, the lock released
     with Progress("sweep", "runs", rate_unit="run") as bar:
         rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
                             progress=lambda done, failed, total, eta:
-                            bar.to(done + failed, total, f"{failed} failed"))
+                            bar.to(done + failed, total, f"{failed} failed"), fresh=fresh)
     click.echo(f"done {rep.done}, failed {rep.failed}, skipped {rep.skipped} (already finished) "
                f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
     for e in rep.errors[:10]:
         click.echo(f"failed: {e}", err=True)
+    if rep.failed:
+        sys.exit(1)          # some runs failed: recorded in DIR/_failed, retried on a restart
+
+
+def _once(warn):
+    """A warn function that says each message once."""
+    seen: set[str] = set()
+
+    def say(msg: str) -> None:
+        if msg not in seen:
+            seen.add(msg)
+            warn(msg)
+    return say
+
+
+def _check_run_folder(out: Path, replace: bool) -> None:
+    """Before any work: ``out`` can be written, and replacing it loses nothing dwell did not
+    write (an existing folder must be an earlier run, and replaced only with --replace)."""
+    from .run import run_folder_problem
+
+    check_output(out, folder=True, replaces=True)
+    if out.is_dir():
+        problem = run_folder_problem(out)
+        if problem:
+            raise OutputError(f"{out}: {problem}")
+        if any(out.iterdir()) and not replace:
+            raise OutputError(f"{out}: holds an earlier dwell run; add --replace to replace it")
 
 
 def _need(outdir: Path, name: str) -> None:

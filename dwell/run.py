@@ -29,6 +29,13 @@ from .radio.cells import cell_names
 
 TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf",
           "sinr_ccdf")
+RUN_TOML_HEAD = "# Fully resolved configuration of this run"
+# what dwell writes into a run folder: the run itself, then `dwell compare`, `dwell plot`
+# and `dwell report`
+RUN_FILES = frozenset([f"{t}.parquet" for t in TABLES + ("trace",)] +
+                       ["run.toml", "summary.txt", "comparison.txt", "comparison.parquet",
+                        "report.html"])
+PLOTS_FOLDER = "plots"
 
 
 class InvariantError(AssertionError):
@@ -182,22 +189,34 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
         tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn,
                             trace=trace)
     else:
-        import multiprocessing as mp
+        from .io.errors import RunFailed
+        from .io.processes import each_in_a_process
         bounds = np.linspace(0, n, workers + 1).round().astype(int)
         groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+        import multiprocessing as mp
         ctx = mp.get_context("fork")
         _SHARED["scen"] = scen
         _SHARED["done_s"] = ctx.Array("d", len(groups), lock=False) if progress else None
-        try:
-            with ctx.Pool(len(groups)) as pool:
-                job = pool.map_async(_worker, [(i, g, kernel, check, trace)
-                                               for i, g in enumerate(groups)])
-                while progress is not None and not job.ready():
-                    job.wait(0.5)
-                    duration_s = float(scen.scenario["duration_s"])
-                    progress(sum(_SHARED["done_s"]) / len(groups), duration_s)
-                parts = job.get()
+        parts: list = [None] * len(groups)
+        duration_s = float(scen.scenario["duration_s"])
+
+        def tick() -> None:
+            progress(sum(_SHARED["done_s"]) / len(groups), duration_s)
+
+        outcomes = each_in_a_process(_worker, [(i, g, kernel, check, trace)
+                                               for i, g in enumerate(groups)], len(groups),
+                                     tick if progress is not None else None)
+        try:       # each group in a forked process that dies with this one
+            for res in outcomes:
+                if res.error is not None:
+                    raise res.error
+                if not res.ok:
+                    names = [scen.terminals[k]["name"] for k in groups[res.index]]
+                    raise RunFailed(f"terminals {names[0]}..{names[-1]}: {res.died}; "
+                                    "nothing was written")
+                parts[res.index] = res.value
         finally:
+            outcomes.close()         # kills the groups still running, if any
             _SHARED.clear()
         seen: set[str] = set()
         for _, messages in parts:     # every worker propagates: report each warning once
@@ -215,8 +234,49 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     return tables
 
 
+def run_folder_problem(folder: str | Path) -> str | None:
+    """Why an existing folder must not be replaced by a run folder, or None if it may be.
+
+    A folder may be replaced when it is empty or is a dwell run folder: its ``run.toml`` starts
+    with the header dwell writes, its ``summary.parquet`` carries dwell's provenance metadata,
+    and it holds nothing else than what dwell writes there (the tables, ``run.toml``,
+    ``summary.txt``, ``comparison.*``, ``plots/*.png`` and the temporary names of atomic writes).
+    Anything else in it is someone's data, which a replacement would delete.  Costs a listing
+    and one Parquet footer read.
+    """
+    folder = Path(folder)
+    entries = sorted(folder.iterdir())
+    if not entries:
+        return None
+    for p in entries:
+        if p.name.startswith(".") and ".tmp" in p.name:
+            continue                                 # an interrupted atomic write of ours
+        if p.name == PLOTS_FOLDER and p.is_dir() and not p.is_symlink():
+            odd = [q for q in p.iterdir() if not (q.suffix == ".png" and q.is_file()
+                                                  or q.name.startswith("."))]
+            if odd:
+                return _not_ours(odd[0].relative_to(folder))
+            continue
+        if p.name not in RUN_FILES or not p.is_file() or p.is_symlink():
+            return _not_ours(p.relative_to(folder))
+    try:
+        head = (folder / "run.toml").read_text(encoding="utf-8").split("\n", 1)[0]
+        from .io.tables import read_metadata
+        marked = "dwell.config_sha256" in read_metadata(folder / "summary.parquet")
+    except Exception:       # unreadable, not Parquet, not ours: the same answer
+        head, marked = "", False
+    if not head.startswith(RUN_TOML_HEAD) or not marked:
+        return "is not a dwell run folder (no run.toml and summary.parquet written by dwell)"
+    return None
+
+
+def _not_ours(name: Path) -> str:
+    return (f"holds {name}, which dwell did not write; refusing to replace the folder "
+            "(choose another -o)")
+
+
 def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> None:
-    with atomic_dir(out_dir) as tmp:
+    with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
         for name in TABLES + (("trace",) if "trace" in tables.frames else ()):
             write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
         (tmp / "run.toml").write_text(run_toml(scen, out_dir))
@@ -247,7 +307,7 @@ def run_toml(scen: Scenario, folder: str | Path | None = None) -> str:
             if ":" in rule and rule.split(":", 1)[0].endswith(".py"):
                 file, cls = rule.split(":", 1)
                 table["rule"] = rel(file) + ":" + cls
-    head = ("# Fully resolved configuration of this run: `dwell run run.toml -o DIR` repeats it.\n"
+    head = (f"{RUN_TOML_HEAD}: `dwell run run.toml -o DIR` repeats it.\n"
             f"# config sha256 {scen.config_hash()}\n")
     return head + tomli_w.dumps(resolved)
 

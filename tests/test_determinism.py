@@ -126,4 +126,4 @@ def test_two_worker_sweep_twice_gives_identical_summaries(tmp_path):
     assert summaries == _contents(two, "summary-*.parquet")
     # the per-run tables too (they feed every later analysis of the sweep)
     assert _contents(one, "_runs/*/*.parquet") == _contents(two, "_runs/*/*.parquet")
-    assert len(_contents(one, "_runs/*/*.parquet")) == 8 * 5
+    assert len(_contents(one, "_runs/*/*.parquet")) == 8 * 6   # RUN_TABLES per run

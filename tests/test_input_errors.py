@@ -218,8 +218,8 @@ def test_tle_bad_checksum(tmp_path):
     wrong = l2[:68] + str((int(l2[68]) + 3) % 10)
     config = _tle_config(tmp_path, f"obj-a\n{l1}\n{wrong}\n")
     before = _files(tmp_path)
-    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "elements.tle", "line 3",
-                            wrong[:40])
+    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "elements.tle", "line 3")
+    assert wrong[:20] not in line  # issue 13 item 12: errors never repeat the file's content
     # the message's expected digit is the one Spacetrack Report No. 3's rule gives
     assert f"should be {_tle_checksum(wrong)}" in line
 
@@ -230,8 +230,9 @@ def test_tle_bad_line_length(tmp_path):
     short = l2[:20] + l2[23:]  # three columns taken out of the middle: 66 characters
     config = _tle_config(tmp_path, f"{l1}\n{short}\n")
     before = _files(tmp_path)
-    _assert_rejected(_run(tmp_path, config), tmp_path, before, "elements.tle", "line 2",
-                     short[:40], "66")
+    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "elements.tle", "line 2",
+                            "66")
+    assert short[:20] not in line  # issue 13 item 12: never the content
 
 
 def test_tle_missing_line_2(tmp_path):
@@ -239,7 +240,8 @@ def test_tle_missing_line_2(tmp_path):
     l1, _ = _tle(103)
     config = _tle_config(tmp_path, f"obj-a\n{l1}\n")
     before = _files(tmp_path)
-    _assert_rejected(_run(tmp_path, config), tmp_path, before, "elements.tle", "line 2", l1[:40])
+    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "elements.tle", "line 2")
+    assert l1[:20] not in line  # issue 13 item 12: never the content
 
 
 def test_tle_epochs_far_apart_warn_only(tmp_path):
@@ -325,8 +327,9 @@ MASK_CASES = [
     # elevation is an angle from the horizon: -90..90 deg (common practice)
     ("elevation-above-90", HEAD + "0,10\n90,90.5\n", ["line 3", "elevation_deg", "90.5"]),
     ("elevation-below-minus-90", HEAD + "0,-91\n", ["line 2", "elevation_deg", "-91"]),
-    ("bad-header", "az,el\n0,10\n", ["line 1", "'az,el'"]),
-    ("non-numeric-cell", HEAD + "0,10\n90,high\n", ["line 3", "elevation_deg", "'high'"]),
+    # issue 13 item 12: the line and column are named, the file's text is not repeated
+    ("bad-header", "az,el\n0,10\n", ["line 1", "header"]),
+    ("non-numeric-cell", HEAD + "0,10\n90,high\n", ["line 3", "elevation_deg"]),
 ]
 
 
@@ -335,7 +338,8 @@ MASK_CASES = [
 def test_bad_mask(tmp_path, body, needles):
     config = _mask_config(tmp_path, body)
     before = _files(tmp_path)
-    _assert_rejected(_run(tmp_path, config), tmp_path, before, "mask.csv", *needles)
+    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "mask.csv", *needles)
+    assert "az,el" not in line and "high" not in line  # issue 13 item 12: never the content
 
 
 def test_empty_mask(tmp_path):
@@ -353,7 +357,8 @@ def test_valid_mask_runs(tmp_path):
 def test_bad_header_after_comment_names_its_line(tmp_path):
     config = _mask_config(tmp_path, "# surveyed 2026\n\naz,el\n0,10\n")
     before = _files(tmp_path)
-    _assert_rejected(_run(tmp_path, config), tmp_path, before, "mask.csv", "line 3", "'az,el'")
+    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "mask.csv", "line 3")
+    assert "az,el" not in line  # issue 13 item 12: never the content
 
 
 def test_mask_cell_beyond_csv_field_limit(tmp_path):
@@ -395,8 +400,9 @@ def test_track_jump_faster_than_limit(tmp_path):
 def test_track_bad_header(tmp_path):
     config = _track_config(tmp_path, "t,lat,lon,alt\n0,44.2,8.9,0\n")
     before = _files(tmp_path)
-    _assert_rejected(_run(tmp_path, config), tmp_path, before, "track.csv", "line 1",
-                     "'t,lat,lon,alt'")
+    line = _assert_rejected(_run(tmp_path, config), tmp_path, before, "track.csv", "line 1",
+                            "header")
+    assert "t,lat,lon,alt" not in line  # issue 13 item 12: never the content
 
 
 # ---- policy parameters ------------------------------------------------------------------------

@@ -46,7 +46,7 @@ from dwell.sweep import combined_summary, load_sweep, pending
 QUICK = Path(__file__).resolve().parents[1] / "configs" / "quick.toml"
 SEEDS = [1, 2, 3, 4]
 POLICIES = ["a3", "highest-elevation"]
-RUN_TABLES = ("links", "handovers", "outages", "dwell_ccdf", "summary")
+RUN_TABLES = ("links", "handovers", "outages", "dwell_ccdf", "sinr_ccdf", "summary")
 
 
 def _sweep_file(folder: Path, seeds=SEEDS, duration_s: float = 7200, name: str = "sweep.toml"
@@ -259,7 +259,8 @@ def _failing_sweep(folder: Path, rule: str) -> Path:
 def _check_failing_sweep(sweep: Path, out: Path) -> None:
     plan = load_sweep(sweep)
     bad = [r.key for r in plan.runs if r.policy_names == ["plug"]]
-    proc = _dwell("sweep", str(sweep), "-o", str(out), "--workers", "1")
+    proc = _dwell("sweep", str(sweep), "-o", str(out), "--workers", "1", check=False)
+    assert proc.returncode == 1, proc.stderr  # issue 13 item 4: a failed run, a failed status
     assert _report(proc.stdout) == {"done": 2, "failed": 1, "skipped": 0, "total": 3}
     assert "deliberate failure in the plug-in" in proc.stderr
     assert sorted(p.name for p in (out / "_failed").iterdir()) == [f"{bad[0]}.json"]
@@ -268,7 +269,8 @@ def _check_failing_sweep(sweep: Path, out: Path) -> None:
     assert len(list(out.glob("summary-*.parquet"))) == 2
     assert not (out / f"summary-{bad[0]}.parquet").exists()
     # execute.py: a failed run is retried on the next start; finished ones are skipped
-    again = _report(_dwell("sweep", str(sweep), "-o", str(out), "--workers", "1").stdout)
+    again = _report(_dwell("sweep", str(sweep), "-o", str(out), "--workers", "1",
+                           check=False).stdout)
     assert again == {"done": 0, "failed": 1, "skipped": 2, "total": 3}
 
 

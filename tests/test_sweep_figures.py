@@ -179,13 +179,13 @@ def test_bad_sweep_plot_option_is_one_line_exit_2_and_writes_nothing(sweep_dir, 
 
 
 def test_site_sweep_draws_results_per_site_in_sweep_order(tmp_path):
-    # README: latitude-band sites are evenly spaced from lat_min_deg to lat_max_deg and named
-    # lat+000.0, ...: 0, 30, 60 deg for count = 3
+    # sites listed north to south: the figure keeps the sweep file's order, not a sorted one
     (tmp_path / "sites.toml").write_text(tomli_w.dumps({
         "sweep": {"base": str(QUICK)},
         "overrides": {"scenario.duration_s": 600},
-        "axis": [{"key": "terminal", "sites": {"kind": "latitude-band", "lat_min_deg": 60,
-                                               "lat_max_deg": 0, "count": 3, "lon_deg": 10}},
+        "axis": [{"key": "terminal", "sites": {"kind": "list", "sites": [
+            {"name": f"lat{lat:+06.1f}", "lat_deg": float(lat), "lon_deg": 10.0}
+            for lat in (60, 30, 0)]}},
                  {"key": "policy", "values": ["a3"]}]}))
     out = tmp_path / "out"
     res = _dwell("sweep", str(tmp_path / "sites.toml"), "-o", str(out), "--workers", "1")

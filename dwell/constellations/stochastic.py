@@ -12,7 +12,17 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..io.schema import REQUIRED, Field, between, ge, gt, integer, lt, number, text
+from ..io.schema import (
+    REQUIRED,
+    Field,
+    between,
+    gt,
+    integer,
+    lt,
+    number,
+    seed as seed_field,
+    text,
+)
 from .base import (
     BuildContext,
     Satellite,
@@ -22,7 +32,7 @@ from .base import (
     uniform_planes,
 )
 
-_SEED = Field((int,), None, (ge(0),), "random seed (default: the scenario seed)")
+_SEED = seed_field()
 
 ISOTROPIC_KEYS = {
     "satellites": integer(REQUIRED, gt(0), doc="N, satellites"),

@@ -12,7 +12,7 @@ import shutil
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Iterator
+from typing import Callable, Iterator
 
 
 class OutputError(Exception):
@@ -30,15 +30,40 @@ def _publish_mode(path: Path, folder: bool) -> None:
     os.chmod(path, (0o777 if folder else 0o666) & ~_umask())
 
 
-def check_output(target: str | Path, *, folder: bool) -> None:
-    """Fail early (before any work) if ``target`` cannot be written: raises OutputError."""
+def check_output(target: str | Path, *, folder: bool, replaces: bool = False) -> None:
+    """Fail early (before any work) if ``target`` cannot be written: raises OutputError.
+
+    ``replaces`` says the folder will be replaced as a whole (a run folder, renamed into
+    place): it must then not be the current folder or one holding it, and an existing one must
+    be writable through and through so that the old one can be removed.  Symbolic links are
+    refused: the rename would replace the link, not what it points to.  Costs a few stat calls
+    (a walk of an existing folder that is replaced).
+    """
     target = Path(target)
+    if str(target) in ("", ".", "..") or target.name in ("", ".", ".."):
+        if replaces:
+            raise OutputError(f"{target}: name a folder of its own (the current folder or its "
+                              "parent cannot be replaced)")
+    full = Path(os.path.abspath(target))
+    if os.path.islink(target):
+        raise OutputError(f"{target}: is a symbolic link; give the path it points to "
+                          f"({os.path.realpath(target)})")
+    if replaces:
+        here = Path(os.path.abspath(os.getcwd()))
+        if full == here or full in here.parents:
+            raise OutputError(f"{target}: is the current folder or holds it; name another folder")
     if target.exists():
         if folder and not target.is_dir():
             raise OutputError(f"{target}: exists and is not a folder")
         if not folder and target.is_dir():
             raise OutputError(f"{target}: is a folder, a file is expected")
-    parent = target.parent
+        if folder:
+            inner = [target] + ([p for p in target.rglob("*") if p.is_dir() and not p.is_symlink()]
+                                if replaces else [])
+            for d in inner:
+                if not os.access(d, os.W_OK | os.X_OK):
+                    raise OutputError(f"{target}: cannot write in {d} (permission denied)")
+    parent = full.parent
     while not parent.exists():
         parent = parent.parent
     if not parent.is_dir():
@@ -82,10 +107,13 @@ def write_bytes(target: str | Path, data: bytes) -> None:
 
 
 @contextmanager
-def atomic_dir(target: str | Path) -> Iterator[Path]:
+def atomic_dir(target: str | Path, may_replace: Callable[[Path], str | None] | None = None
+               ) -> Iterator[Path]:
     """Build a folder under a temporary name and rename it into place when complete.
 
-    If the target exists it is replaced only once the new folder is complete.
+    If the target exists it is replaced only once the new folder is complete; ``may_replace``
+    (when given) is asked first and returns why an existing target must not be replaced, or
+    None (checked at the rename, so a folder that changed during the work is still kept).
     """
     target = Path(target)
     try:
@@ -99,6 +127,9 @@ def atomic_dir(target: str | Path) -> Iterator[Path]:
         for inner in tmp.rglob("*"):
             _publish_mode(inner, folder=inner.is_dir())
         if target.exists():
+            problem = may_replace(target) if may_replace is not None else None
+            if problem:
+                raise OutputError(f"{target}: {problem}")
             old = target.with_name(f".{target.name}.old-{os.getpid()}")
             os.replace(target, old)
             os.replace(tmp, target)

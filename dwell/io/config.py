@@ -15,9 +15,11 @@ work starts, and raises :class:`~dwell.errors.InputError` naming the file, key a
 from __future__ import annotations
 
 import copy
+import functools
 import hashlib
-import math
 import json
+import math
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,7 +36,9 @@ from .schema import (
     between,
     check_table,
     flag,
+    follow_scenario,
     ge,
+    label,
     gt,
     le,
     number,
@@ -44,18 +48,25 @@ from .schema import (
 PATH_KEYS = ("path", "mask", "track")  # keys whose values are files relative to the config
 
 
+# Vallado's Julian-date algorithm (sgp4.api.jday) holds for 1900..2100 (Vallado, Fundamentals
+# of Astrodynamics and Applications, algorithm 14; from memory); TLE epochs name years 1957-2056.
+FIRST_YEAR, LAST_YEAR = 1900, 2099
+
+
 def _utc(value: Any) -> str | None:
     try:
-        parse_utc(value)
+        moment = parse_utc(value)
     except ValueError as exc:
         return str(exc)
+    if not FIRST_YEAR <= moment.year <= LAST_YEAR:
+        return f"must lie in the years {FIRST_YEAR}..{LAST_YEAR} (Julian dates of SGP4)"
     return None
 
 
 SCENARIO_KEYS: dict[str, Field] = {
     "start": Field((str,), REQUIRED, (_utc,), "scenario start, ISO-8601 UTC"),
     "duration_s": number(REQUIRED, gt(0), le(366 * 86400), doc="scenario length"),
-    "name": text("scenario", doc="label carried into the outputs"),
+    "name": label("scenario", doc="label carried into the outputs"),
     "seed": Field((int,), 0, (ge(0),), "seed for every stochastic part of the run"),
     "earth_rotation": flag(True, doc="false freezes the Earth (analytic studies)"),
     "ut1_utc_s": number(0.0, between(-1.0, 1.0), doc="UT1-UTC used for sidereal time"),
@@ -67,7 +78,7 @@ SCENARIO_KEYS: dict[str, Field] = {
 }
 
 TERMINAL_KEYS: dict[str, Field] = {
-    "name": text(REQUIRED, doc="label, unique in the scenario"),
+    "name": label(REQUIRED, doc="label, unique in the scenario"),
     "lat_deg": number(REQUIRED, between(-90, 90), doc="WGS-84 geodetic latitude"),
     "lon_deg": number(REQUIRED, between(-180, 360), doc="longitude, east positive"),
     "alt_m": number(0.0, between(-500, 100000), doc="height above the WGS-84 ellipsoid"),
@@ -78,7 +89,7 @@ TERMINAL_KEYS: dict[str, Field] = {
 
 CONSTELLATION_COMMON = {
     "kind": text(REQUIRED, choices=tuple(SOURCES), doc="source kind"),
-    "name": Field((str,), None, (), "label; satellites are named after it"),
+    "name": label(None, doc="label; satellites are named after it"),
     "beams": Field((dict,), None, (), "beam layout of these satellites (see dwell.radio.beams)"),
 }
 
@@ -145,6 +156,13 @@ def _drop_none(obj: Any) -> Any:
     return obj
 
 
+def canonical_config(resolved: dict) -> str:
+    """A resolved configuration as canonical JSON, referenced files (masks, tracks, element
+    sets, plug-in rules) replaced by the sha256 of their content: equal texts mean equal runs
+    wherever the files live, and an edited file changes the text.  Reads every such file."""
+    return _canonical(resolved)
+
+
 def _canonical(resolved: dict) -> str:
     def walk(obj: Any, key: str = "") -> Any:
         if isinstance(obj, dict):
@@ -152,9 +170,25 @@ def _canonical(resolved: dict) -> str:
         if isinstance(obj, list):
             return [walk(v, key) for v in obj]
         if key in PATH_KEYS and isinstance(obj, str) and Path(obj).is_file():
-            return "sha256:" + hashlib.sha256(Path(obj).read_bytes()).hexdigest()
+            return "sha256:" + _file_digest(obj)
+        if key == "rule" and policies.is_plugin(obj):       # a plug-in: its code, not its path
+            file, cls = obj.split(":", 1)
+            if Path(file).is_file():
+                return "sha256:" + _file_digest(file) + ":" + cls
         return obj
     return json.dumps(walk(resolved), sort_keys=True, default=str)
+
+
+def _file_digest(path: str) -> str:
+    """sha256 of a file's content, read once per (path, modification time, size): a sweep
+    keys many runs on the same element file."""
+    st = Path(path).stat()
+    return _digest(str(Path(path).resolve()), st.st_mtime_ns, st.st_size)
+
+
+@functools.lru_cache(maxsize=256)
+def _digest(path: str, mtime_ns: int, size: int) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def read_toml(path: Path) -> dict[str, Any]:
@@ -163,19 +197,37 @@ def read_toml(path: Path) -> dict[str, Any]:
     except OSError as exc:
         raise InputError(str(path), None, None, f"cannot read: {exc.strerror or exc}") from None
     try:
-        return tomllib.loads(data.decode("utf-8"))
+        # a byte-order mark is allowed at the start of UTF-8 text (RFC 3629 section 6), as the
+        # CSV and element-file readers already accept
+        return tomllib.loads(data.decode("utf-8-sig"))
     except UnicodeDecodeError:
         raise InputError(str(path), None, None, "not UTF-8 text") from None
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(str(path), None, None, f"not valid TOML ({exc})") from None
+        where, reason = _toml_position(str(exc))
+        raise InputError(str(path), where, None, reason, show_value=False) from None
+
+
+def _toml_position(message: str) -> tuple[str | None, str]:
+    """(where, reason) of a TOML parse error: the line and column it names, and its
+    reason with any quoted key of the file left out (errors never repeat the file's text)."""
+    m = re.search(r"\(at line (\d+), column (\d+)\)", message)
+    where = f"line {m.group(1)}, column {m.group(2)}" if m else None
+    reason = re.sub(r"\s*\(at [^)]*\)", "", message)
+    # tomllib quotes keys as ('a', 'b') and single characters as '=': keep the latter only
+    reason = re.sub(r"\((?:'[^']*'(?:, )?)+,?\)|'[^']{2,}'|\"[^\"]{2,}\"", "a key", reason)
+    return where, f"not valid TOML ({reason.strip()})"
 
 
 def load_scenario(path: str | Path, *, warn: Callable[[str], None] | None = None,
-                  build: bool = True) -> Scenario:
-    """Read and check a scenario file; with ``build`` also build satellites and sites."""
+                  build: bool = True, load_plugins: bool = False) -> Scenario:
+    """Read and check a scenario file; with ``build`` also build satellites and sites.
+
+    Plug-in rule files are Python code: they run only with ``load_plugins`` (commands that run
+    policies); otherwise their files must exist and their parameters stay unchecked."""
     path = Path(path)
     raw = read_toml(path)
-    return scenario_from_dict(raw, str(path), path.resolve().parent, warn=warn, build=build)
+    return scenario_from_dict(raw, str(path), path.resolve().parent, warn=warn, build=build,
+                              load_plugins=load_plugins)
 
 
 def _array_of_tables(raw: dict, key: str, source: str, required: bool) -> list[dict]:
@@ -212,8 +264,10 @@ def _absolute_path(value: str, base_dir: Path, source: str, where: str) -> str:
 
 
 def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
-                       warn: Callable[[str], None] | None = None, build: bool = True) -> Scenario:
-    """Check a decoded scenario; ``source`` names the file in error messages."""
+                       warn: Callable[[str], None] | None = None, build: bool = True,
+                       load_plugins: bool = False) -> Scenario:
+    """Check a decoded scenario; ``source`` names the file in error messages (see
+    :func:`load_scenario` for ``build`` and ``load_plugins``)."""
     warn = warn or (lambda msg: None)
     for key, value in raw.items():
         if key not in TOP_LEVEL:
@@ -240,6 +294,7 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         spec = {**CONSTELLATION_COMMON, **SOURCES[kind].keys}
         params = check_table(table, spec, source, where)
         params["beams"] = beams.check_table(params["beams"], link_params, source, where)
+        follow_scenario(params)                 # seed = "scenario": as if absent
         if params["name"] is None:
             params["name"] = f"{kind.replace('-', '')}{i + 1}"
         _absolute(params, base_dir, source, where)
@@ -262,20 +317,29 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         link_params["interference"] = any(c["beams"]["layout"] != "single" for c in consts)
     _resolve_cell_origins(consts, terms)
     pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source, warn,
-                                 base_dir)
+                                 base_dir, load_plugins=load_plugins)
     for i, params in enumerate(pols):
         _absolute(params, base_dir, source, f"policy[{i + 1}]")
 
     out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
     out.layouts = [beams.BeamLayout.from_params(c["beams"]) for c in consts]
     if build:
-        out.constellation = build_constellation(out, warn)
-        for i, c in enumerate(consts):
-            alts = [s.altitude_km for s in out.constellation.satellites if s.table == i]
-            beams.check_against_orbit(c["beams"], min(alts) if alts else math.nan, source,
-                                      f"constellation[{i + 1}]")
-        out.sites = [obstruction.build_site(t, out, i, warn) for i, t in enumerate(terms)]
+        build_scenario(out, warn)
     return out
+
+
+def build_scenario(scen: Scenario, warn: Callable[[str], None] | None = None) -> Scenario:
+    """Build a checked scenario's satellites and sites (reads element files, masks, tracks;
+    generates canyons).  Returns the same object.  Cost: one SGP4 initialisation per satellite
+    and each site's files or generated buildings (see dwell.io.estimate for how much)."""
+    warn = warn or (lambda msg: None)
+    scen.constellation = build_constellation(scen, warn)
+    for i, c in enumerate(scen.constellations):
+        alts = [s.altitude_km for s in scen.constellation.satellites if s.table == i]
+        beams.check_against_orbit(c["beams"], min(alts) if alts else math.nan, scen.source,
+                                  f"constellation[{i + 1}]")
+    scen.sites = [obstruction.build_site(t, scen, i, warn) for i, t in enumerate(scen.terminals)]
+    return scen
 
 
 def build_constellation(scen: Scenario, warn: Callable[[str], None]) -> Constellation:

@@ -11,13 +11,18 @@ class InputError(Exception):
     """
 
     def __init__(self, source: str, where: str | None, value: object = None, reason: str = "",
-                 *, show_value: bool = True):
+                 show_value: bool = True):
         self.source = str(source)
         self.where = where
         self.value = value
         self.reason = reason
         self.show_value = show_value
-        super().__init__(self._line())
+        # the arguments themselves, so that ``type(err)(*err.args)`` (simpy re-raising a
+        # process's error) and pickling (worker processes) rebuild the same error
+        super().__init__(self.source, where, value, reason, show_value)
+
+    def __str__(self) -> str:
+        return self._line()
 
     def _line(self) -> str:
         head = self.source
@@ -32,3 +37,8 @@ def _short(value: object, limit: int = 60) -> str:
     text = repr(value)
     text = text.replace("\n", "\\n")
     return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+class RunFailed(Exception):
+    """A run could not complete for a reason that is not bad input (a worker process died);
+    the message is one line, and nothing was written."""

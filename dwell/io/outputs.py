@@ -9,6 +9,14 @@ from ..orbits.geometry import Geometry, cause_name, coverage_steps
 from ..orbits.passes import CAUSE_EDGE
 
 
+# columns of the pass table and their dtypes (an empty table keeps them)
+PASS_COLUMNS = {"terminal": object, "satellite": object, "shell": object, "rise_utc": "float64",
+                "culmination_utc": "float64", "set_utc": "float64", "duration_s": "float64",
+                "max_elevation_deg": "float64", "cut_at_start": bool, "cut_at_end": bool,
+                "start_cause": object, "end_cause": object, "pass_index": "int64",
+                "rise_s": "float64", "set_s": "float64"}
+
+
 def passes_frame(geo: Geometry) -> pd.DataFrame:
     """One row per visibility window of every terminal (a pass cut by obstructions gives several
     rows sharing ``pass_index``).  Times are scenario seconds in ``*_utc`` columns (converted to
@@ -38,11 +46,8 @@ def passes_frame(geo: Geometry) -> pd.DataFrame:
             "rise_s": w["start_s"].to_numpy(),
             "set_s": w["end_s"].to_numpy(),
         }))
-    if not parts:
-        return pd.DataFrame(columns=["terminal", "satellite", "shell", "rise_utc",
-                                     "culmination_utc", "set_utc", "duration_s",
-                                     "max_elevation_deg", "cut_at_start", "cut_at_end",
-                                     "start_cause", "end_cause", "pass_index", "rise_s", "set_s"])
+    if not parts:   # typed, so that frames of workers that saw nothing concatenate cleanly
+        return pd.DataFrame({name: pd.Series(dtype=dtype) for name, dtype in PASS_COLUMNS.items()})
     df = pd.concat(parts, ignore_index=True)
     df = df.replace({"start_cause": {"edge": "scenario-edge"}, "end_cause": {"edge": "scenario-edge"}})
     return df

@@ -47,6 +47,49 @@ def text(default: Any = REQUIRED, *checks: Check, doc: str = "", choices=None) -
     return Field((str,), default, checks, doc, tuple(choices) if choices else None)
 
 
+NAME_MAX_CHARS = 200   # labels end up in table cells, file names and one-line messages
+
+
+def label_check(v: Any) -> str | None:
+    """A label (terminal, policy, constellation, scenario name): not empty, at most
+    ``NAME_MAX_CHARS`` characters, no control characters (they would break one-line output)."""
+    if not v.strip():
+        return "must not be empty"
+    if len(v) > NAME_MAX_CHARS:
+        return f"is {len(v)} characters long; at most {NAME_MAX_CHARS} are allowed"
+    if any(ord(c) < 32 or ord(c) == 127 for c in v):
+        return "must not contain control characters (newline, tab, ...)"
+    return None
+
+
+def label(default: Any = REQUIRED, doc: str = "") -> Field:
+    return Field((str,), default, (label_check,), doc)
+
+
+FOLLOW_SCENARIO = "scenario"   # a part's seed written so follows the scenario seed
+
+
+def _seed_check(v: Any) -> str | None:
+    if isinstance(v, str):
+        return None if v == FOLLOW_SCENARIO else \
+            f"must be a whole number >= 0 or \"{FOLLOW_SCENARIO}\""
+    return None if v >= 0 else "must be >= 0"
+
+
+def seed(doc: str = "random seed (default, or \"scenario\": derived from the scenario seed)"
+         ) -> Field:
+    """A part's own seed: a whole number fixes it (a sweep over scenario.seed then leaves the
+    part unchanged); absent or ``"scenario"`` derives it from the scenario seed.  Checked values
+    hold None for the latter (see :func:`follow_scenario`)."""
+    return Field((int, str), None, (_seed_check,), doc)
+
+
+def follow_scenario(params: dict | None, key: str = "seed") -> None:
+    """Normalise ``seed = "scenario"`` to None (absent): both derive from the scenario seed."""
+    if isinstance(params, dict) and params.get(key) == FOLLOW_SCENARIO:
+        params[key] = None
+
+
 def flag(default: Any = REQUIRED, doc: str = "") -> Field:
     return Field((bool,), default, (), doc)
 

@@ -37,6 +37,9 @@ def to_arrow(df: pd.DataFrame, epoch=None, metadata: dict[str, str] | None = Non
     for name in df.columns:
         values = df[name]
         if name.endswith("_utc"):
+            if values.dtype == object and all(
+                    isinstance(v, (int, float)) and not isinstance(v, bool) for v in values.tolist()):
+                values = values.astype("float64")   # scenario seconds held as objects
             if values.dtype.kind == "f" and epoch is not None:
                 arr = epoch.utc(values.to_numpy())
             else:

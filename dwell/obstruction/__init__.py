@@ -19,7 +19,7 @@ from typing import Any, Callable
 import numpy as np
 
 from ..io.errors import InputError
-from ..io.schema import REQUIRED, Field, between, gt, number, table
+from ..io.schema import REQUIRED, Field, between, follow_scenario, gt, le, number, table
 from ..radio.noise import stream_id
 from . import canyon as canyon_mod
 from . import los as los_mod
@@ -39,7 +39,8 @@ TERMINAL_KEYS: dict[str, Field] = {
     "canyon": table(canyon_mod.KEYS, doc="generated street canyon"),
     "los": table(los_mod.KEYS, doc="statistical line of sight (3GPP TR 38.811)"),
     "track": Field((str,), None, (), "track CSV (time,lat_deg,lon_deg,alt_m)"),
-    "track_max_speed_m_s": number(400.0, gt(0), doc="legs faster than this are input errors"),
+    "track_max_speed_m_s": number(400.0, gt(0), le(3e4),
+                                  doc="legs (and drives) faster than this are input errors"),
     "drive": table(DRIVE_KEYS, doc="straight drive at constant speed"),
     "mask_step_s": number(1.0, gt(0), doc="obstruction sampling step inside passes"),
 }
@@ -47,9 +48,17 @@ TERMINAL_KEYS: dict[str, Field] = {
 
 def check_terminal(params: dict[str, Any], source: str, where: str) -> None:
     """Cross-key checks that need no file access."""
+    follow_scenario(params["canyon"])       # seed = "scenario": derived like an absent seed
+    follow_scenario(params["los"])
     if params["track"] is not None and params["drive"] is not None:
         raise InputError(source, f"{where}.drive", "table",
                          "a terminal follows either a track or a drive, not both")
+    drive = params["drive"]
+    if drive is not None and drive["speed_m_s"] > params["track_max_speed_m_s"]:
+        # the bound tracks have: a terminal faster than this is a mistake, not a vehicle
+        raise InputError(source, f"{where}.drive.speed_m_s", drive["speed_m_s"],
+                         f"faster than track_max_speed_m_s = {params['track_max_speed_m_s']:g}"
+                         " (raise that key for a faster vehicle)")
     if params["canyon"] is not None:
         canyon_mod.check(params["canyon"], source, where)
         if params["track"] is not None:

@@ -56,7 +56,8 @@ import numpy as np
 from scipy.special import cosdg, sindg
 
 from ..io.errors import InputError
-from ..io.schema import REQUIRED, Field, between, ge, gt, number, numbers, text
+from ..io.schema import REQUIRED, Field, between, ge, gt, le, number, numbers, text
+from ..io.schema import seed as seed_field
 
 LAWS = ("exponential", "deterministic", "lognormal", "pareto", "empirical")
 NOTHING_DEG = -90.0            # mask value where no building blocks
@@ -81,12 +82,14 @@ KEYS: dict[str, Field] = {
     "azimuth_deg": number(0.0, between(-360, 360), doc="street axis, from north clockwise"),
     "antenna_height_m": number(1.5, ge(0), doc="antenna height above the street"),
     "lateral_m": number(0.0, doc="antenna offset from the centreline, positive to the right"),
-    "buildings_per_km": number(60.0, gt(0), doc="building starts per km, per side"),
+    # at most one building start per metre of street and side: common practice (no building
+    # is narrower), and what keeps a realisation's size sane (see dwell.io.estimate)
+    "buildings_per_km": number(60.0, gt(0), le(1000), doc="building starts per km, per side"),
     "depth_m": number(15.0, gt(0), doc="building depth away from the street"),
     **_law_keys("height", 20.0),
     **_law_keys("length", 25.0),
     "street_length_m": number(2000.0, gt(0), doc="street generated, centred on the start"),
-    "seed": Field((int,), None, (ge(0),), "random seed (default: the scenario seed)"),
+    "seed": seed_field(),
 }
 
 

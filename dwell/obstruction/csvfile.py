@@ -1,4 +1,8 @@
-"""Small numeric CSV files (masks, tracks): header check and line-numbered errors."""
+"""Small numeric CSV files (masks, tracks): header check and line-numbered errors.
+
+Errors name the file, the line and the column with a reason, and never repeat the file's text:
+a path pointed at the wrong file (an account database, a key) must not print its content.
+Numbers that parsed are shown (they are values the user wrote, not arbitrary text)."""
 
 from __future__ import annotations
 
@@ -15,7 +19,8 @@ def _records(body: str, path: Path):
         try:
             cells = next(csv.reader([line]), [])
         except csv.Error as exc:
-            raise InputError(str(path), f"line {number}", line[:40], f"not CSV ({exc})") from None
+            raise InputError(str(path), f"line {number}", None, f"not CSV ({exc})",
+                             show_value=False) from None
         yield number, cells
 
 
@@ -30,7 +35,9 @@ def read_numeric_csv(path: str | Path, columns: tuple[str, ...], *,
     try:
         body = path.read_text(encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(str(path), None, None, f"cannot read: {exc}") from None
+        reason = "not UTF-8 text" if isinstance(exc, UnicodeDecodeError) else \
+            f"cannot read: {exc.strerror or type(exc).__name__}"
+        raise InputError(str(path), None, None, reason) from None
     header = None
     rows: list[tuple[int, dict[str, object]]] = []
     for number, record in _records(body, path):
@@ -39,12 +46,13 @@ def read_numeric_csv(path: str | Path, columns: tuple[str, ...], *,
         if header is None:
             header = [c.strip() for c in record]
             if sorted(header) != sorted(columns):
-                raise InputError(str(path), f"line {number} (header)", ",".join(header),
-                                 "header must be " + ",".join(columns))
+                raise InputError(str(path), f"line {number} (header)", None,
+                                 "the header must be " + ",".join(columns), show_value=False)
             continue
         if len(record) != len(header):
-            raise InputError(str(path), f"line {number}", ",".join(record),
-                             f"expected {len(header)} values")
+            raise InputError(str(path), f"line {number}", None,
+                             f"has {len(record)} values, expected {len(header)}",
+                             show_value=False)
         row: dict[str, object] = {}
         for name, cell in zip(header, record):
             cell = cell.strip()
@@ -57,8 +65,8 @@ def read_numeric_csv(path: str | Path, columns: tuple[str, ...], *,
                 if name in text_columns and cell:
                     row[name] = cell
                 else:
-                    raise InputError(str(path), f"line {number}, {name}", cell,
-                                     "must be a finite number") from None
+                    raise InputError(str(path), f"line {number}, {name}", None,
+                                     "must be a finite number", show_value=False) from None
         rows.append((number, row))
     if header is None:
         raise InputError(str(path), None, None, "empty file (header " + ",".join(columns) +

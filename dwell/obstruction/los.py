@@ -20,7 +20,7 @@ import numpy as np
 from scipy.signal import lfilter
 from scipy.special import ndtr
 
-from ..io.schema import REQUIRED, Field, ge, gt, number, text
+from ..io.schema import REQUIRED, Field, ge, gt, number, seed as seed_field, text
 from ..radio import noise
 
 # 3GPP TR 38.811, Table 6.6.1-1 (LOS probability for NTN), values from memory.
@@ -40,7 +40,7 @@ KEYS: dict[str, Field] = {
     "decorrelation_s": number(10.0, gt(0),
                               doc="time constant of the latent process; sets blockage run lengths"),
     "step_s": number(1.0, gt(0), doc="sample spacing of the latent process"),
-    "seed": Field((int,), None, (ge(0),), "random seed (default: the scenario seed)"),
+    "seed": seed_field(),
     "nlos_loss_db": Field((int, float), None, (ge(0),),
                           "extra loss of a non-LOS path; unset: a non-LOS satellite is blocked"),
 }

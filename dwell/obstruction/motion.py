@@ -95,7 +95,8 @@ class Track(_Interpolated):
                 try:
                     value = epoch.seconds_since(parse_utc(value))
                 except ValueError as exc:
-                    raise InputError(str(path), f"line {line}, time", row["time"], str(exc)) from None
+                    raise InputError(str(path), f"line {line}, time", None, str(exc),
+                                     show_value=False) from None
             if not -90.0 <= row["lat_deg"] <= 90.0:
                 raise InputError(str(path), f"line {line}, lat_deg", row["lat_deg"], "must be in -90..90")
             if not -180.0 <= row["lon_deg"] <= 360.0:

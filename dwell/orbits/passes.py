@@ -92,6 +92,10 @@ class _Evaluator:
     def floor_margin(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
         return self.elevation(sat, t_s) - self.site.floor_deg
 
+    def sine_elevation(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        """sin(elevation): smooth through the zenith, where elevation itself has a cusp."""
+        return np.sin(np.radians(self.elevation(sat, t_s)))
+
     def mask_margin(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
         """Elevation minus the obstruction mask at the satellite's azimuth (floor excluded)."""
         step = self.site.sample_step_s
@@ -336,8 +340,21 @@ def _pair_leniently(st, sr, sc, et, er, ec):
     return tuple(np.asarray(v) for v in out)
 
 
+PEAK_ROUNDS = 4      # a 60 s bracket to < 1e-4 s on the smooth sin(elevation)
+PEAK_TOL_S = 1e-4    # golden section: 1e-4 s is < 1e-4 deg even at a cusp (< 1 deg/s)
+
+
 def _culminate(ev, t, f, run, p_sat, p_run, p_start, p_end, opts):
-    """Peak of each pass: best sub-grid sample inside it, refined by golden-section search."""
+    """Peak of each pass: the best sub-grid sample inside it, refined.
+
+    The refinement maximises sin(elevation), not elevation: near the zenith elevation is
+    90 deg minus the off-zenith angle, whose minimum over a pass is a cusp (|t - t0| for an
+    overhead pass), where a parabola through three samples misses the peak (by 0.1 deg and
+    0.5 s at 89.9 deg culminations); sin(elevation) = cos(off-zenith angle) is smooth there and
+    has its maximum at the same instant.  Successive parabolic interpolation (``PEAK_ROUNDS``
+    rounds) or, at the ends of a sampled run, golden-section search to ``PEAK_TOL_S``; then
+    one evaluation of the elevation at the refined instant.
+    """
     n = p_start.size
     if n == 0:
         return np.zeros(0), np.zeros(0)
@@ -363,17 +380,18 @@ def _culminate(ev, t, f, run, p_sat, p_run, p_start, p_end, opts):
     inner &= (run[bi - 1] == run[bi]) & (run[bi + 1] == run[bi]) & (best >= 0)
     inner &= (f[bi] >= f[bi - 1]) & (f[bi] >= f[bi + 1])
     ct = np.empty(n)
-    cf = np.empty(n)
+    sine = np.sin(np.radians(f + ev.site.floor_deg))      # of the samples' elevations
     ii = np.flatnonzero(inner)
-    ct[ii], cf[ii] = parabolic_max(ev.floor_margin, p_sat[ii], t[bi[ii] - 1], t[bi[ii]],
-                                   t[bi[ii] + 1], f[bi[ii] - 1], f[bi[ii]], f[bi[ii] + 1])
+    ct[ii], _ = parabolic_max(ev.sine_elevation, p_sat[ii], t[bi[ii] - 1], t[bi[ii]],
+                              t[bi[ii] + 1], sine[bi[ii] - 1], sine[bi[ii]], sine[bi[ii] + 1],
+                              rounds=PEAK_ROUNDS)
     oo = np.flatnonzero(~inner)
     lo = np.where(best >= 0, t[np.maximum(best - 1, 0)], p_start)[oo]
     hi = np.where(best >= 0, t[np.minimum(best + 1, t.size - 1)], p_end)[oo]
     lo = np.maximum(lo, p_start[oo])
     hi = np.minimum(hi, p_end[oo])
-    tol = min(opts.refine_s * 10, 0.1)  # elevation is flat at its peak: 0.1 s is ample
-    ct[oo], cf[oo] = golden_max(ev.floor_margin, p_sat[oo], lo, hi, tol)
+    ct[oo], _ = golden_max(ev.sine_elevation, p_sat[oo], lo, hi, PEAK_TOL_S)
+    cf = ev.floor_margin(p_sat, ct)
     # the peak may sit at an edge of a cut pass
     fs = ev.floor_margin(p_sat, p_start)
     fe = ev.floor_margin(p_sat, p_end)

@@ -9,31 +9,41 @@ and files starting with ``_`` or ``.`` are ignored by Parquet dataset readers)::
     DIR/_tasks/<task key>/            passes and visible (shared by the task's runs)
     DIR/_failed/<run key>.json        the error of a failed run (retried on the next start)
     DIR/_sweep.toml                   the sweep file, for the record
+    DIR/_plan.json                    the plan's fingerprint: which sweep this folder holds
+    DIR/_lock                         held (flock) by the sweep running in the folder
 
 A run is finished when its summary file exists; every file and folder is written under a
 temporary name and renamed into place, so an interrupted sweep leaves nothing half-written and
-a restart skips exactly the finished runs.
+a restart skips exactly the finished runs.  Run keys hash the content of every referenced file,
+so an edited mask, element set, track or plug-in gives new runs; a folder holding another plan
+(other axes, edited inputs) is refused unless ``fresh`` clears what dwell wrote there.
+
+Locally every task runs in a forked process of its own (:mod:`dwell.io.processes`): a task
+that runs out of memory, or whose process dies otherwise, is recorded in ``_failed/`` and the
+sweep goes on; workers die with the sweep.
 """
 
 from __future__ import annotations
 
 import copy
+import fcntl
 import json
 import math
+import os
 import re
 import shutil
 import time
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from contextlib import closing, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, Iterator
 
 import pandas as pd
 
-from ..io.atomic import atomic_dir, write_text
+from ..io.atomic import OutputError, atomic_dir, write_bytes, write_text
 from .spec import Run, SweepPlan
 
-RUN_TABLES = ("links", "handovers", "outages", "dwell_ccdf", "summary")
+RUN_TABLES = ("links", "handovers", "outages", "dwell_ccdf", "sinr_ccdf", "summary")
 TASK_TABLES = ("passes", "visible")
 
 
@@ -89,7 +99,8 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
         def warn(msg: str) -> None:       # workers report on the sweep's stderr
             print(f"{msg} [task {task_key}]", file=sys.stderr)
 
-        scen = scenario_from_dict(combined, "sweep task", Path(base_dir), warn=warn)
+        scen = scenario_from_dict(combined, "sweep task", Path(base_dir), warn=warn,
+                                  load_plugins=True)
         results, geo = run_scenario(scen, warn=warn)
         tables = build_tables(scen, results, geo, check=True)
         geo.close()
@@ -100,7 +111,8 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
         status = []
         for j, r in enumerate(runs):
             mine = [k for k, (jj, _) in owner.items() if jj == j]
-            run_scen = scenario_from_dict(copy.deepcopy(r["scenario"]), "sweep run", Path(base_dir))
+            run_scen = scenario_from_dict(copy.deepcopy(r["scenario"]), "sweep run", Path(base_dir),
+                                          load_plugins=True)
             with atomic_dir(out / "_runs" / r["key"]) as tmp:
                 for name in RUN_TABLES:
                     df = frames[name]
@@ -122,12 +134,17 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
             (out / "_failed" / f"{r['key']}.json").unlink(missing_ok=True)
         return status
     except Exception as exc:  # a failing run must not stop the sweep: record it
-        msg = f"{type(exc).__name__}: {exc}"
-        for r in runs:
-            (out / "_failed").mkdir(parents=True, exist_ok=True)
-            write_text(out / "_failed" / f"{r['key']}.json",
-                       json.dumps({"params": r["params"], "error": msg}, default=str))
-        return [(r["key"], "failed", msg) for r in runs]
+        return record_failure(out, runs, f"{type(exc).__name__}: {exc}")
+
+
+def record_failure(out: Path, runs: list[dict], msg: str) -> list[tuple[str, str, str]]:
+    """Write ``_failed/<run key>.json`` for each run of a task that failed; their statuses."""
+    msg = msg if len(msg) <= 2000 else msg[:1997] + "..."
+    for r in runs:
+        (out / "_failed").mkdir(parents=True, exist_ok=True)
+        write_text(out / "_failed" / f"{r['key']}.json",
+                   json.dumps({"params": r["params"], "error": msg}, default=str))
+    return [(r["key"], "failed", msg) for r in runs]
 
 
 @dataclass
@@ -150,36 +167,151 @@ def pending(plan: SweepPlan, out_dir: Path) -> dict[str, list[Run]]:
     return todo
 
 
-def estimate_cost_s(plan: SweepPlan) -> float:
-    """Rough CPU seconds, calibrated on the demo scenario on this class of machine: per day,
-    0.25 s of propagation and ~0.9 s of pass finding and measurement per terminal (both per
-    1,584 satellites), and ~0.2 s of kernel per terminal and policy at a 1 s period."""
+def task_estimates(plan: SweepPlan) -> dict[str, Any]:
+    """Each task's :class:`~dwell.io.estimate.Estimate` (one process: its geometry once, all of
+    its runs' policies); see that module for the model and what it was calibrated on."""
     from ..io.config import scenario_from_dict
-    total = 0.0
-    for runs in plan.tasks.values():
+    from ..io.estimate import estimate_run
+    out = {}
+    for task, runs in plan.tasks.items():
         scen = scenario_from_dict(copy.deepcopy(runs[0].scenario), plan.source, plan.base_dir,
                                   build=False)
-        sats = sum(c.get("satellites") or (c.get("planes", 1) * c.get("per_plane", 0)) or 1000
-                   for c in scen.constellations) / 1584.0
-        days = float(scen.scenario["duration_s"]) / 86400.0
-        terms = len(scen.terminals)
-        n_pol = sum(len(r.scenario["policy"]) for r in runs)
-        period = float(scen.scenario["measurement_period_s"])
-        total += days * (0.25 * sats + terms * 0.9 * sats + terms * n_pol * 0.2 / period)
-    return total
+        out[task] = estimate_run(scen, n_policies=sum(len(r.scenario["policy"]) for r in runs))
+    return out
+
+
+def estimate_cost_s(plan: SweepPlan) -> float:
+    """CPU seconds of the whole sweep: the sum of its tasks' estimates (calibrated on this
+    project's development machine; configs/sweep-demo.toml measured 109 s, estimated 126 s)."""
+    return sum(e.cpu_s for e in task_estimates(plan).values())
 
 
 def _payload(run: Run) -> dict[str, Any]:
     return {"key": run.key, "params": run.params, "scenario": run.scenario}
 
 
-def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1, executor: str = "local",
-                  scheduler: str | None = None, progress: Callable[[int, int, int, float], None] | None = None
-                  ) -> SweepReport:
+# ---- the folder: which sweep it holds, the lock ------------------------------------------------
+
+PLAN_FILE = "_plan.json"
+LOCK_FILE = "_lock"
+# what dwell writes at the top of a sweep folder (``_plots`` by ``dwell plot``)
+WRITTEN = ("_runs", "_tasks", "_failed", "_plots", "_sweep.toml", PLAN_FILE, LOCK_FILE)
+
+
+def _ours(name: str) -> bool:
+    return name in WRITTEN or bool(re.fullmatch(r"summary-[0-9a-f]{16}\.parquet", name)) or \
+        _leftover(name)
+
+
+def _leftover(name: str) -> bool:
+    """A temporary name of an interrupted atomic write (``dwell.io.atomic``)."""
+    return name.startswith(".") and (".tmp" in name or ".old-" in name)
+
+
+def _held(out: Path) -> str | None:
+    """The fingerprint of the plan a folder holds (None: no readable record)."""
+    try:
+        return json.loads((out / PLAN_FILE).read_text(encoding="utf-8")).get("fingerprint")
+    except (OSError, ValueError, AttributeError):
+        return None
+
+
+def folder_problem(plan: SweepPlan, out: Path, fresh: bool = False) -> str | None:
+    """Why the sweep must not run in ``out`` (read only; None when it may).
+
+    ``out`` may be absent, empty, or hold this very plan (a resume).  A folder holding another
+    plan, or a sweep of an older dwell without a plan record, needs ``fresh``; a folder holding
+    files dwell did not write (and no sweep) is refused: the combined dataset would read them.
+    """
+    if not out.is_dir():
+        return None
+    names = [p.name for p in out.iterdir()]
+    if (out / PLAN_FILE).is_file():
+        if fresh or _held(out) == plan.fingerprint:
+            return None
+        return ("holds another sweep (its runs differ from this plan's: changed axes or edited "
+                "input files); add --fresh to clear what dwell wrote there, or use another -o")
+    if any(_ours(n) and not _leftover(n) and n != LOCK_FILE for n in names):
+        if fresh:
+            return None
+        return ("holds a sweep without a plan record (written by an older dwell); add --fresh "
+                "to clear what dwell wrote there, or use another -o")
+    foreign = sorted(n for n in names if not _ours(n))
+    if foreign:
+        return (f"holds {foreign[0]}, which is no part of a dwell sweep; a sweep needs an empty "
+                "or new folder (or one holding the same sweep)")
+    return None
+
+
+@contextmanager
+def sweep_lock(out: Path) -> Iterator[None]:
+    """Hold ``out/_lock`` (flock, released when this process ends however it ends); a second
+    sweep in the same folder is refused with one line naming the holder's process id."""
+    path = out / LOCK_FILE
+    try:
+        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot create {LOCK_FILE} ({exc.strerror or exc})") from None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        holder = os.pread(fd, 32, 0).decode(errors="replace").strip() or "unknown"
+        os.close(fd)
+        raise OutputError(f"{out}: another dwell sweep is running in this folder (process "
+                          f"{holder}); wait for it to end or use another -o") from None
+    try:
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+        yield
+    finally:
+        os.close(fd)
+
+
+def _clear(out: Path, everything: bool) -> None:
+    """Remove leftovers of interrupted writes; with ``everything`` all that dwell wrote."""
+    for folder in (out, out / "_runs", out / "_tasks", out / "_failed"):
+        if not folder.is_dir():
+            continue
+        for p in folder.iterdir():
+            top = folder == out
+            if _leftover(p.name) or (everything and top and _ours(p.name) and p.name != LOCK_FILE):
+                if p.is_dir() and not p.is_symlink():
+                    shutil.rmtree(p, ignore_errors=True)
+                else:
+                    p.unlink(missing_ok=True)
+
+
+def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1,
+                  executor: str = "local", scheduler: str | None = None,
+                  progress: Callable[[int, int, int, float], None] | None = None,
+                  fresh: bool = False) -> SweepReport:
+    """Run the plan's unfinished runs into ``out_dir`` (see the module docstring); ``fresh``
+    first clears everything dwell wrote there (and so starts over).  Raises OutputError when
+    the folder holds something else or another sweep is running in it."""
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    if Path(plan.source).exists():
-        shutil.copyfile(plan.source, out / "_sweep.toml")
+    problem = folder_problem(plan, out, fresh)
+    if problem:
+        raise OutputError(f"{out}: {problem}")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot create ({exc.strerror or exc})") from None
+    with sweep_lock(out):
+        problem = folder_problem(plan, out, fresh)      # again, now that no one else writes
+        if problem:
+            raise OutputError(f"{out}: {problem}")
+        _clear(out, everything=fresh)
+        write_text(out / PLAN_FILE, json.dumps({"fingerprint": plan.fingerprint,
+                                                "name": plan.name, "runs": len(plan.runs),
+                                                "run_keys": sorted(r.key for r in plan.runs)},
+                                               indent=1) + "\n")
+        if Path(plan.source).exists():
+            write_bytes(out / "_sweep.toml", Path(plan.source).read_bytes())
+        return _execute(plan, out, workers, executor, scheduler, progress)
+
+
+def _execute(plan: SweepPlan, out: Path, workers: int, executor: str, scheduler: str | None,
+             progress) -> SweepReport:
     columns = param_columns(plan)
     todo = pending(plan, out)
     total = len(plan.runs)
@@ -208,22 +340,29 @@ def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1, exe
         progress(0, 0, n_todo, math.nan)
     if executor == "dask":
         _run_dask(jobs, plan, out, columns, workers, scheduler, note)
-    elif workers <= 1:
-        for task, runs in jobs:
-            note(run_task(task, runs, str(plan.base_dir), str(out), columns))
     else:
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            futures = {pool.submit(run_task, task, runs, str(plan.base_dir), str(out), columns)
-                       for task, runs in jobs}
-            try:
-                while futures:
-                    finished, futures = wait(futures, return_when=FIRST_COMPLETED)
-                    for f in finished:
-                        note(f.result())
-            except KeyboardInterrupt:
-                pool.shutdown(wait=False, cancel_futures=True)
-                raise
+        _run_local(jobs, plan, out, columns, workers, note)
     return SweepReport(total, done, failed, skipped, time.time() - t0, errors)
+
+
+def _task_job(job) -> list[tuple[str, str, str]]:
+    return run_task(*job)
+
+
+def _run_local(jobs, plan, out, columns, workers, note) -> None:
+    """Every task in a forked process of its own, ``workers`` at a time: a task whose process
+    dies (out of memory) is recorded as failed and the others go on."""
+    from ..io.processes import each_in_a_process
+    payloads = [(task, runs, str(plan.base_dir), str(out), columns) for task, runs in jobs]
+    with closing(each_in_a_process(_task_job, payloads, workers)) as outcomes:
+        for res in outcomes:
+            runs = jobs[res.index][1]
+            if res.ok:
+                note(res.value)
+            elif res.error is not None:
+                note(record_failure(out, runs, f"{type(res.error).__name__}: {res.error}"))
+            else:
+                note(record_failure(out, runs, f"{res.died} (task {jobs[res.index][0]})"))
 
 
 def _run_dask(jobs, plan, out, columns, workers, scheduler, note) -> None:
@@ -241,10 +380,13 @@ def _run_dask(jobs, plan, out, columns, workers, scheduler, note) -> None:
                                dashboard_address=None)
         client = Client(cluster)
     try:
-        futures = [client.submit(run_task, task, runs, str(plan.base_dir), str(out), columns,
-                                 pure=False) for task, runs in jobs]
-        for fut in as_completed(futures):
-            note(fut.result())
+        futures = {client.submit(run_task, task, runs, str(plan.base_dir), str(out), columns,
+                                 pure=False): runs for task, runs in jobs}
+        for fut in as_completed(list(futures)):
+            try:
+                note(fut.result())
+            except Exception as exc:     # e.g. the worker died (dask retries, then gives up)
+                note(record_failure(out, futures[fut], f"{type(exc).__name__}: {exc}"))
     finally:
         client.close()
         if cluster is not None:
