@@ -149,3 +149,52 @@ def test_inclination_average_is_isotropic_and_frozen_isotropic_is_closed_form():
                                     rel=1e-5)
     assert S.isotropic_pass_rate_per_s(100, psi0, 1.0) == pytest.approx(
         float(A.isotropic_pass_rate_per_s(100, psi0, 1.0)), rel=1e-14)
+
+
+def test_in_view_count_law_of_combined_shells_against_snapshots():
+    # Two isotropic shells: the count is the convolution of two binomials (independent
+    # satellites, cap-area fractions), exact.  An inclined shell of independent satellites
+    # (random nodes) is Binomial(N, M/N) with M the latitude-density mean; the formula's
+    # Poisson law of mean M differs from that binomial by a total variation computed here with
+    # scipy (Le Cam 1960 bounds it by M^2/N).  Monte Carlo: snapshots of independent
+    # satellites (uniform nodes and phases) counted in the cap.
+    from scipy.stats import binom
+    rng = np.random.default_rng(77)
+    lat, snaps = 35.0, 12000
+    site = S.Site(lat, 1.0, 0.0)
+    shells = [S.Shell(80, 1.1, 1.0, None), S.Shell(50, 1.3, 1.0, None),
+              S.Shell(600, 1.03, 1.0, 60.0)]
+    t = np.array([math.cos(math.radians(lat)), 0.0, math.sin(math.radians(lat))])
+    counts = np.zeros((len(shells), snaps), dtype=int)
+    for j, shell in enumerate(shells):
+        psi0 = site.psi0(shell)
+        for chunk in np.array_split(np.arange(snaps), 6):
+            n1, n2 = _orbits(rng, chunk.size * shell.n_sat, shell.inclination_deg)
+            u = rng.uniform(0.0, 2 * np.pi, chunk.size * shell.n_sat)
+            pos = np.cos(u)[:, None] * n1 + np.sin(u)[:, None] * n2
+            inside = (pos @ t >= math.cos(psi0)).reshape(chunk.size, shell.n_sat)
+            counts[j, chunk] = inside.sum(axis=1)
+    k = np.arange(30)
+    # exact part: two isotropic shells; 5 binomial standard errors per count value
+    emp = np.array([np.mean(counts[0] + counts[1] == i) for i in k])
+    want = S.in_view_pmf(shells[:2], site, k_max=29)
+    np.testing.assert_array_less(np.abs(emp - want), 5 * np.sqrt(want * (1 - want) / snaps) + 1e-4)
+    # the labelled approximation: total variation to the Monte Carlo law at most the
+    # Poisson-binomial distance plus the empirical law's noise (E|emp_k - p_k| <=
+    # sqrt(p_k (1 - p_k) / n), so the expected noise in the total variation is at most half
+    # their sum; twice that is allowed)
+    shell = shells[2]
+    m = S.mean_in_view(shell, site)
+    kk = np.arange(120)
+    pois = S.in_view_pmf([shell], site, k_max=119)
+    exact = binom.pmf(kk, shell.n_sat, m / shell.n_sat)
+    model_tv = 0.5 * np.abs(exact - pois).sum()
+    emp = np.bincount(counts[2], minlength=120)[:120] / snaps
+    noise = float(np.sum(np.sqrt(pois * (1 - pois) / snaps)))
+    assert 0.5 * np.abs(emp - pois).sum() < model_tv + noise
+    assert model_tv < m * m / shell.n_sat < 0.3        # Le Cam, and the check is not vacuous
+    # means and variances add over shells (convolution; tolerance float rounding)
+    assert S.shells_mean_in_view(shells[:2], site) == pytest.approx(
+        S.mean_in_view(shells[0], site) + S.mean_in_view(shells[1], site), rel=1e-14)
+    assert S.in_view_sd(shells[:2], site) == pytest.approx(
+        math.sqrt(float(np.sum(k ** 2 * want)) - float(np.sum(k * want)) ** 2), rel=1e-6)

@@ -627,7 +627,11 @@ def format_comparison(df: pd.DataFrame, title: str | None = None) -> str:
     lines.append(head)
     lines.append("-" * len(head))
     refs: dict[tuple[str, str, str], int] = {}
+    group = None
     for _, r in df.iterrows():
+        if r["group"] and r["group"] != group:
+            group = r["group"]
+            lines.append(f"-- runs with {group}")
         if not r["applicable"]:
             lines.append(f"{r['terminal']:<14} {r['policy']:<18} {r['quantity']:<44} {r['note']}")
             continue
@@ -655,5 +659,6 @@ def format_comparison(df: pd.DataFrame, title: str | None = None) -> str:
                      "between draws of the constellation; run a sweep over seeds and `dwell "
                      "compare SWEEPDIR` for that.")
     else:
-        lines.append("Intervals: Student-t over the pooled runs' values (spread across seeds).")
+        lines.append("Intervals: Student-t over the pooled runs' values (spread across seeds), "
+                     "except where the runs agree exactly (see each reference).")
     return "\n".join(lines) + "\n"

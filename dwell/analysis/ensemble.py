@@ -9,7 +9,10 @@ whose axis values agree except on seed axes (keys ending in ``seed``: ``scenario
 and each row is pooled over the group: the mean of the runs' simulated values with a 95 %
 Student-t interval ``mean +- t(0.975, n - 1) sd / sqrt(n)`` over the n runs' values.  That
 interval covers the spread between draws (of the constellation, of shadowing and noise), which
-a single run's interval does not.  A row applies to the group only if it applies to every run.
+a single run's interval does not.  Where every run has the same value (the seeds do not
+change it, e.g. a Walker shell's geometry), there is no spread: the runs' own interval is
+kept and the ``interval`` column says so.  A row applies to the group only if it applies to
+every run.
 
 Cost: one :func:`compare_run` per run.
 """
@@ -83,7 +86,14 @@ def pool(tables: list[pd.DataFrame], group: str = "") -> pd.DataFrame:
         x = g["simulated"].to_numpy(dtype=float)
         ana = float(np.mean(g["analytic"].to_numpy(dtype=float)))
         mean = float(np.mean(x))
-        if x.size >= 2:
+        interval = f"Student-t over {x.size} runs' values (spread across seeds)"
+        if x.size >= 2 and np.ptp(x) == 0.0:
+            # the seeds do not change this value (e.g. a Walker shell's geometry): there is no
+            # spread to pool, so keep the runs' own interval and say so
+            lo, hi = float(first["sim_lo"]), float(first["sim_hi"])
+            interval = f"the {x.size} runs agree exactly (seeds do not change it); " \
+                       f"{first['interval']}"
+        elif x.size >= 2:
             half = float(stats.t.ppf(0.975, x.size - 1) * np.std(x, ddof=1) / math.sqrt(x.size))
             lo, hi = mean - half, mean + half
         else:
@@ -96,7 +106,7 @@ def pool(tables: list[pd.DataFrame], group: str = "") -> pd.DataFrame:
         first.update({"simulated": mean, "sim_lo": lo, "sim_hi": hi, "analytic": ana,
                       "rel_diff": (mean - ana) / ana if np.isfinite(ana) and ana != 0 else math.nan,
                       "inside_interval": bool(lo <= ana <= hi) if ok else None,
-                      "interval": f"Student-t over {x.size} runs' values (spread across seeds)",
+                      "interval": interval,
                       "runs": int(x.size), "group": group, "note": note})
         out.append(first)
     return frame(out)
