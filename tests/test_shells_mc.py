@@ -151,7 +151,8 @@ def test_inclination_average_is_isotropic_and_frozen_isotropic_is_closed_form():
         float(A.isotropic_pass_rate_per_s(100, psi0, 1.0)), rel=1e-14)
 
 
-def test_in_view_count_law_of_combined_shells_against_snapshots():
+@pytest.mark.parametrize("lat, incl", [(35.0, 60.0), (-62.0, 97.0)])
+def test_in_view_count_law_of_combined_shells_against_snapshots(lat, incl):
     # Two isotropic shells: the count is the convolution of two binomials (independent
     # satellites, cap-area fractions), exact.  An inclined shell of independent satellites
     # (random nodes) is Binomial(N, M/N) with M the latitude-density mean; the formula's
@@ -159,11 +160,11 @@ def test_in_view_count_law_of_combined_shells_against_snapshots():
     # scipy (Le Cam 1960 bounds it by M^2/N).  Monte Carlo: snapshots of independent
     # satellites (uniform nodes and phases) counted in the cap.
     from scipy.stats import binom
-    rng = np.random.default_rng(77)
-    lat, snaps = 35.0, 12000
+    rng = np.random.default_rng(int(77 + lat))
+    snaps = 12000
     site = S.Site(lat, 1.0, 0.0)
     shells = [S.Shell(80, 1.1, 1.0, None), S.Shell(50, 1.3, 1.0, None),
-              S.Shell(600, 1.03, 1.0, 60.0)]
+              S.Shell(600, 1.03, 1.0, incl)]
     t = np.array([math.cos(math.radians(lat)), 0.0, math.sin(math.radians(lat))])
     counts = np.zeros((len(shells), snaps), dtype=int)
     for j, shell in enumerate(shells):
