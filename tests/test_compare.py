@@ -17,7 +17,7 @@ from scipy import stats
 
 from dwell.analysis import compare as cmp_mod
 from dwell.analysis.compare import COLUMNS, compare_run, format_comparison
-from dwell.analysis.ensemble import compare_sweep, is_seed_axis, pool
+from dwell.analysis.ensemble import is_seed_axis, pool
 from dwell.cli import main
 from dwell.io.config import scenario_from_dict
 from dwell.io.errors import InputError

@@ -292,7 +292,7 @@ def compare_run(run_dir: str | Path) -> pd.DataFrame:
     tables = read_run(run_dir)
     scen = tables.scen
     rows: list[dict] = []
-    for k, term in enumerate(scen.terminals):
+    for k in range(len(scen.terminals)):
         rows += _terminal_rows(tables, k)
     return frame(rows)
 
@@ -307,7 +307,7 @@ def _obstacle_reason(scen: Scenario, k: int) -> str | None:
 
 
 def _terminal_rows(tables: RunTables, k: int) -> list[dict]:
-    scen, T = tables.scen, tables.duration_s
+    scen = tables.scen
     name = scen.terminals[k]["name"]
     rows: list[dict] = []
     why = _obstacle_reason(scen, k)
@@ -322,8 +322,8 @@ def _terminal_rows(tables: RunTables, k: int) -> list[dict]:
         return rows
     geo = _geometry(scen, k)
     iv = _in_view(tables, name)
-    rows += _in_view_rows(scen, name, geo, iv)
-    rows += _pass_rows(tables, name, geo, iv)
+    rows += _in_view_rows(name, geo, iv)
+    rows += _pass_rows(tables, name, geo)
     for pol in scen.policies:
         rows += _handover_rows(tables, name, geo, iv, pol)
     rows += _sinr_rows(tables, name, geo)
@@ -338,7 +338,7 @@ def _supported(geo: Geometry) -> str | None:
     return None
 
 
-def _in_view_rows(scen: Scenario, name: str, geo: Geometry, iv: InView) -> list[dict]:
+def _in_view_rows(name: str, geo: Geometry, iv: InView) -> list[dict]:
     why = _supported(geo)
     quantities = ("mean in view", "fraction of time none in view",
                   "in-view count standard deviation")
@@ -378,8 +378,8 @@ def _in_view_rows(scen: Scenario, name: str, geo: Geometry, iv: InView) -> list[
     return rows
 
 
-def _pass_rows(tables: RunTables, name: str, geo: Geometry, iv: InView) -> list[dict]:
-    scen, T = tables.scen, tables.duration_s
+def _pass_rows(tables: RunTables, name: str, geo: Geometry) -> list[dict]:
+    T = tables.duration_s
     why = _supported(geo)
     if not why and any(kind.startswith("walker") for kind in geo.kinds) \
             and geo.site.earth_rate_rad_s == 0:
@@ -428,11 +428,11 @@ def _nearest_rule(pol: dict) -> str | None:
     return None
 
 
-def _count_interval(tables: RunTables, name: str, label: str) -> tuple[float, float, float, int]:
-    srow = _summary_row(tables, name, label)
-    n_ho = int(srow["handovers"])
+def _count_interval(tables: RunTables, name: str, label: str) -> tuple[float, float, float]:
+    """Handovers per hour of one terminal x policy and its exact Poisson interval."""
+    n_ho = int(_summary_row(tables, name, label)["handovers"])
     lo, hi = an.poisson_rate_interval(n_ho, tables.duration_s / 3600.0)
-    return n_ho / (tables.duration_s / 3600.0), float(lo), float(hi), n_ho
+    return n_ho / (tables.duration_s / 3600.0), float(lo), float(hi)
 
 
 def _handover_rows(tables: RunTables, name: str, geo: Geometry, iv: InView, pol: dict
@@ -449,7 +449,7 @@ def _handover_rows(tables: RunTables, name: str, geo: Geometry, iv: InView, pol:
     if weak > 0:
         return [_na(name, label, q, "weak-signal outages (SNR below q_out) change the link "
                                     "sequence")]
-    sim, lo, hi, _ = _count_interval(tables, name, label)
+    sim, lo, hi = _count_interval(tables, name, label)
     rows = []
     one = len(geo.shells) == 1 and geo.shells[0] is not None
     if one and geo.kinds[0] == "isotropic":
@@ -496,7 +496,7 @@ def _until_lost_row(tables: RunTables, name: str, geo: Geometry, iv: InView, pol
     s = geo.shells[0]
     independent = geo.kinds[0] == "isotropic"
     ana = until_lost.until_lost_handover_rate_per_s(s, geo.site, independent) * 3600.0
-    sim, lo, hi, _ = _count_interval(tables, name, label)
+    sim, lo, hi = _count_interval(tables, name, label)
     note = ("RENEWAL APPROXIMATION (the other satellites as a fresh snapshot at each handover: "
             "rate 0.3-3 % high for independent satellites)"
             + ("" if independent else "; POISSON APPROXIMATION of the nearest satellite's law "
