@@ -174,7 +174,8 @@ def compare(outdir: Path) -> None:
         df = compare_run(outdir)
         text = format_comparison(df)
         write_text(outdir / "comparison.txt", text)
-        write_comparison(df, outdir / "comparison.parquet", load_scenario(outdir / "run.toml"))
+        write_comparison(df, outdir / "comparison.parquet",
+                         load_scenario(outdir / "run.toml", build=False))  # provenance only
     click.echo(text, nl=False)
 
 
