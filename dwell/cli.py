@@ -200,16 +200,26 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float,
 @click.argument("outdir", type=click.Path(file_okay=False, exists=True, path_type=Path))
 @guarded
 def compare(outdir: Path) -> None:
-    """Compare a run's simulated values with analytic formulas (where they apply)."""
-    from .analysis.compare import compare_run, format_comparison
+    """Compare a run's (or a sweep's seed ensembles') simulated values with analytic formulas."""
+    from .analysis.compare import format_comparison, write_comparison
     from .io.atomic import write_text
-    from .io.tables import write_frame
 
-    _need(outdir, "run.toml")
-    df = compare_run(outdir)
-    text = format_comparison(df)
-    write_text(outdir / "comparison.txt", text)
-    write_frame(df, outdir / "comparison.parquet")
+    if (outdir / "_sweep.toml").exists():
+        from .analysis.ensemble import compare_sweep
+        df = compare_sweep(outdir)
+        text = format_comparison(df, "runs pooled over seeds (groups: see the group column)")
+        # underscore names: Parquet dataset readers of the sweep folder skip them
+        write_text(outdir / "_comparison.txt", text)
+        write_comparison(df, outdir / "_comparison.parquet")
+    else:
+        from .analysis.compare import compare_run
+        from .io.config import load_scenario
+        _need(outdir, "run.toml")
+        df = compare_run(outdir)
+        text = format_comparison(df)
+        write_text(outdir / "comparison.txt", text)
+        write_comparison(df, outdir / "comparison.parquet",
+                         load_scenario(outdir / "run.toml", build=False))  # provenance only
     click.echo(text, nl=False)
 
 

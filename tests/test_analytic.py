@@ -8,6 +8,7 @@ from scipy.integrate import quad
 from scipy.spatial import cKDTree
 
 from dwell.analysis import analytic as A
+from dwell.analysis import nearest_rate as A_near
 
 R_KM = 6371.0  # mean Earth radius of the 3GPP NTN tables (TR 38.811 / 38.821)
 
@@ -291,3 +292,116 @@ def test_garwood_interval_scales_with_exposure_and_level():
     lo_v, hi_v = A.poisson_rate_interval(np.array([1, 10]), 2.0)
     np.testing.assert_allclose(lo_v, [0.0253 / 2, 4.795 / 2], atol=3e-4)
     np.testing.assert_allclose(hi_v, [5.572 / 2, 18.390 / 2], atol=3e-4)
+
+
+# ---- exact nearest-satellite handover rate (docs/nearest-satellite-rate.md) ------------------
+
+def _random_great_circles(rng: np.random.Generator, shape: tuple[int, ...]
+                          ) -> tuple[np.ndarray, np.ndarray]:
+    """Orthonormal (a, b) per satellite: position a at t = 0, direction of motion b, on a
+    uniformly random great circle at a uniform phase (Gaussian vectors, Gram-Schmidt)."""
+    a = _uniform_sphere(rng, shape)
+    v = rng.standard_normal(shape + (3,))
+    b = v - np.sum(v * a, axis=-1, keepdims=True) * a
+    return a, b / np.linalg.norm(b, axis=-1, keepdims=True)
+
+
+def _nearest_changes_mc(n_sat: int, psi_c: float, realizations: int, steps: int, seed: int,
+                        terminal_rate: float = 0.0) -> tuple[float, float, float, float]:
+    """Monte Carlo of the model itself: `realizations` independent shells of `n_sat` random
+    great-circle satellites (omega = 1), each sampled at `steps` instants over one orbit; count
+    changes of the nearest satellite (all, and with both nearest satellites within psi_c).
+    The terminal starts at the north pole and moves along the x-z great circle at
+    `terminal_rate` (rad per unit time).  Returns (all rate, its s.e., in-view rate, its s.e.),
+    standard errors from the spread over independent realizations."""
+    rng = np.random.default_rng(seed)
+    period = 2 * np.pi
+    t = np.arange(steps) * (period / steps)
+    term = np.stack([np.sin(terminal_rate * t), np.zeros_like(t), np.cos(terminal_rate * t)], 1)
+    counts_all, counts_view = [], []
+    for chunk in np.array_split(np.arange(realizations), max(1, realizations // 50)):
+        a, b = _random_great_circles(rng, (chunk.size, n_sat))
+        # cos(psi) of every satellite at every instant, laid out (shell, instant, satellite)
+        ca = np.einsum("msk,tk->mts", a, term)
+        cb = np.einsum("msk,tk->mts", b, term)
+        z = np.cos(t)[None, :, None] * ca + np.sin(t)[None, :, None] * cb
+        near = np.argmax(z, axis=2)
+        zmax = np.max(z, axis=2)
+        change = near[:, 1:] != near[:, :-1]
+        view = (zmax[:, 1:] >= np.cos(psi_c)) & (zmax[:, :-1] >= np.cos(psi_c))
+        counts_all.append(change.sum(axis=1))
+        counts_view.append((change & view).sum(axis=1))
+    c_all = np.concatenate(counts_all) / period
+    c_view = np.concatenate(counts_view) / period
+    m = realizations
+    return (c_all.mean(), c_all.std(ddof=1) / np.sqrt(m), c_view.mean(),
+            c_view.std(ddof=1) / np.sqrt(m))
+
+
+@pytest.mark.parametrize("n_sat, psi_c, seed", [(12, 1.0, 41), (40, 0.5, 42)])
+def test_nearest_handover_rate_against_random_great_circles(n_sat, psi_c, seed):
+    # Derivation: docs/nearest-satellite-rate.md (Rice's formula for the equidistance
+    # crossings of the two nearest points of a binomial point process).  Monte Carlo of the
+    # same model (independent uniformly random great circles, not dwell's simulator).
+    # Sampling step: 2 pi / 2048 rad of orbit.  A change is missed only if the nearest changes
+    # twice within one step, which needs |psi_i' - psi_j'| / omega below about one step
+    # (3e-3); under Rice's |g'| weighting that is a fraction ~ 1e-4 of the changes.  The
+    # in-view test at the sampled instants misplaces changes within one step of psi_c: a
+    # fraction below 1e-3.  Both far below the Monte Carlo error allowed.
+    rate_all, se_all, rate_view, se_view = _nearest_changes_mc(n_sat, psi_c, 400, 2048, seed)
+    want_all = A_near.isotropic_nearest_handover_rate_per_s(n_sat, 1.0)
+    want_view = A_near.isotropic_nearest_handover_rate_per_s(n_sat, 1.0, psi_c)
+    # Monte Carlo error: 5 standard errors over independent shells
+    assert abs(rate_all - want_all) < 5 * se_all
+    assert abs(rate_view - want_view) < 5 * se_view
+    assert want_view < want_all   # changes below the floor exist at these sizes
+
+
+def test_nearest_handover_rate_moving_terminal_against_monte_carlo():
+    # A terminal moving at half the satellites' angular rate (far beyond Earth rotation, to
+    # make its term visible): the velocity factor becomes the Bessel integral
+    # (2/pi) int (1 - J0(t)^2 J0(v t)^2) / t^2 dt (docs/nearest-satellite-rate.md).
+    v, n_sat, psi_c = 0.5, 20, 0.9
+    rate_all, se_all, rate_view, se_view = _nearest_changes_mc(n_sat, psi_c, 600, 4096, 43,
+                                                               terminal_rate=v)
+    want = A_near.isotropic_nearest_handover_rate_per_s(n_sat, 1.0, terminal_rate_rad_s=v)
+    want_view = A_near.isotropic_nearest_handover_rate_per_s(n_sat, 1.0, psi_c, v)
+    # Monte Carlo error: 5 standard errors; sampling step as in the standing case
+    assert abs(rate_all - want) < 5 * se_all
+    assert abs(rate_view - want_view) < 5 * se_view
+    # the motion must matter at this size: more than 10 standard errors above standing
+    assert want - A_near.isotropic_nearest_handover_rate_per_s(n_sat, 1.0) > 10 * se_all
+
+
+def test_mean_abs_rate_difference_against_sampling_and_closed_form():
+    # E|cos a1 - cos a2| = 8 / pi^2 (product of two independent |sin| means, derived in
+    # docs/nearest-satellite-rate.md); the Bessel form must agree with it as v -> 0 and with
+    # direct sampling of four uniform angles at v = 0.3.
+    # tolerance: quadrature 1e-7 relative; sampling 5 standard errors of 2e6 draws.
+    assert A_near.mean_abs_rate_difference(2.0) == pytest.approx(16 / np.pi ** 2, rel=1e-12)
+    assert A_near.mean_abs_rate_difference(1.0, 1e-9) == pytest.approx(8 / np.pi ** 2, rel=1e-6)
+    rng = np.random.default_rng(44)
+    ang = rng.uniform(0, 2 * np.pi, (4, 2_000_000))
+    x = np.abs(np.cos(ang[0]) - np.cos(ang[1]) - 0.3 * (np.cos(ang[2]) - np.cos(ang[3])))
+    assert abs(A_near.mean_abs_rate_difference(1.0, 0.3) - x.mean()) < 5 * x.std() / np.sqrt(x.size)
+
+
+def test_nearest_rate_worked_value_and_planar_limit():
+    # Worked value (docs/nearest-satellite-rate.md): two satellites swap at omega / pi
+    # (B(3/2, 3/2) = pi/8).  Large N: the exact rate over the planar Poisson-Voronoi rate
+    # (Lin et al. 2013 in the tangent plane) is Gamma(N - 1/2) / (sqrt(N) Gamma(N - 1)),
+    # 1 - 5/(8N) + O(1/N^2) (Stirling), so it tends to 1.  tolerance: float rounding; the
+    # O(1/N^2) remainder for the expansion (its coefficient is -0.18, from the next terms of
+    # Gamma(z + 1/2)/Gamma(z) = sqrt(z)(1 - 1/(8z) + 1/(128 z^2)), so 1/N^2 bounds it).
+    assert A_near.isotropic_nearest_handover_rate_per_s(2, 3.0) == pytest.approx(3.0 / np.pi,
+                                                                                  rel=1e-12)
+    for n in (10, 100, 1000, 100000):
+        exact = A_near.isotropic_nearest_handover_rate_per_s(n, 1e-3)
+        planar = float(A.nearest_satellite_handover_rate_per_s(n, 7000.0, 1e-3))
+        # tolerance: log-gamma / log-beta rounding grows with N (about 1e-10 at N = 1e5)
+        assert exact / planar == pytest.approx(float(A_near.planar_limit_ratio(n)), rel=1e-8)
+        if n <= 1000:  # beyond that the remainder (-0.18/N^2) is below float rounding
+            assert exact / planar == pytest.approx(1 - 5 / (8 * n), abs=1.0 / n ** 2)
+    # a full cap counts every change
+    assert A_near.isotropic_nearest_handover_rate_per_s(50, 1.0, np.pi) == pytest.approx(
+        A_near.isotropic_nearest_handover_rate_per_s(50, 1.0), rel=1e-12)

@@ -9,6 +9,12 @@ along a street, and exact Poisson confidence intervals.  Every function is O(1) 
 Conventions: spherical Earth; angles in radians unless the name says ``_deg``; ``psi0`` is the
 Earth-central half-angle of the visibility cap (the set of satellite directions, seen from the
 Earth's centre, above the terminal's elevation mask).
+
+More formulas live beside this module, each with its derivation in ``docs/``:
+:mod:`.nearest_rate` (exact nearest-satellite handover rate on an isotropic shell),
+:mod:`.shells` (pass rate and duration of inclined and isotropic shells with Earth rotation,
+in-view count laws, several shells), :mod:`.until_lost` (until-lost handover rate),
+:mod:`.sinr_coverage` (SINR coverage), :mod:`.lattice` (hexagonal lattice crossings).
 """
 
 from __future__ import annotations
@@ -106,7 +112,8 @@ def isotropic_pass_rate_per_s(n_sat: int | np.ndarray, psi0: np.ndarray | float,
     ``psi0`` of it, i.e. ``|cos(angle to the normal)| < sin psi0``; the cosine of a uniform
     direction's angle is uniform on [-1, 1], so the probability is ``sin psi0``, and a circle
     that meets the cap gives one pass per revolution (period ``2 pi / omega``).  Assumes a
-    non-rotating Earth or a polar terminal (otherwise the terminal's motion adds flux).
+    non-rotating Earth or a polar terminal (otherwise the terminal's motion adds flux; the
+    rotating form is :func:`dwell.analysis.shells.isotropic_pass_rate_per_s`).
     """
     return np.asarray(n_sat, dtype=float) * omega_rad_s * np.sin(psi0) / (2.0 * np.pi)
 
@@ -196,7 +203,10 @@ def voronoi_handover_rate_per_s(speed: np.ndarray | float,
 def nearest_satellite_handover_rate_per_s(n_sat: int | np.ndarray,
                                           orbit_radius_km: np.ndarray | float,
                                           omega_rad_s: np.ndarray | float) -> np.ndarray:
-    """LOCAL APPROXIMATION to the rate at which the nearest (highest) satellite changes.
+    """LOCAL APPROXIMATION to the rate at which the nearest (highest) satellite changes: the
+    large-N planar limit of the exact rate
+    (:func:`dwell.analysis.nearest_rate.isotropic_nearest_handover_rate_per_s`, which it
+    exceeds by the factor ``1 / (1 - 5/(8N) + ...)``; docs/nearest-satellite-rate.md).
 
     Applies :func:`voronoi_handover_rate_per_s` in the tangent plane of the shell: N uniform
     satellites have intensity ``N / (4 pi r^2)`` per km^2 and move at ``omega r`` km/s, which

@@ -69,6 +69,9 @@ SCENARIO_KEYS: dict[str, Field] = {
     "name": label("scenario", doc="label carried into the outputs"),
     "seed": Field((int,), 0, (ge(0),), "seed for every stochastic part of the run"),
     "earth_rotation": flag(True, doc="false freezes the Earth (analytic studies)"),
+    "earth": text("wgs84", choices=("wgs84", "sphere"),
+                  doc="sites on the WGS-84 ellipsoid, or on the 6371 km sphere that analytic "
+                      "formulas use (up = radial)"),
     "ut1_utc_s": number(0.0, between(-1.0, 1.0), doc="UT1-UTC used for sidereal time"),
     "measurement_period_s": number(1.0, gt(0), le(60), doc="terminal measurement cycle"),
     "propagation_step_s": Field((int, float), None, (gt(0), le(3600)),

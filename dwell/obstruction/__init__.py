@@ -155,20 +155,21 @@ def build_site(params: dict[str, Any], scen, index: int, warn: Callable[[str], N
     seed = scen.seed
     drive = params["drive"]
     canyon_params = params["canyon"]
+    earth = scen.scenario.get("earth", "wgs84")
     if params["track"] is not None:
         motion = Track.from_csv(params["track"], scen.epoch, duration,
-                                params["track_max_speed_m_s"], warn)
+                                params["track_max_speed_m_s"], warn, earth)
     elif drive is not None:
         heading = drive["heading_deg"]
         if heading is None:
             heading = canyon_params["azimuth_deg"] if canyon_params is not None else 0.0
         motion = Drive(params["lat_deg"], params["lon_deg"], params["alt_m"], drive["speed_m_s"],
-                       heading, duration, drive["start_m"])
+                       heading, duration, drive["start_m"], earth)
         if canyon_params is not None:
             reverse = abs(((heading - canyon_params["azimuth_deg"]) % 360.0) - 180.0) < 1e-6
             motion.direction = -1.0 if reverse else 1.0
     else:
-        motion = Static(params["lat_deg"], params["lon_deg"], params["alt_m"])
+        motion = Static(params["lat_deg"], params["lon_deg"], params["alt_m"], earth)
     obstructions = []
     if params["mask"] is not None:
         obstructions.append(HorizonMask.from_csv(params["mask"]))

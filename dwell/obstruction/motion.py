@@ -2,7 +2,8 @@
 
 Every motion answers ``geodetic(t_s) -> (lat_deg, lon_deg, alt_m)`` and
 ``ecef(t_s) -> (position_km, velocity_km_s, basis)`` vectorised over times; geometry uses the
-terminal's position at each instant.
+terminal's position at each instant.  ``earth`` (``[scenario] earth``) places the coordinates on
+the WGS-84 ellipsoid (default) or on the 6371 km sphere (:func:`dwell.orbits.frames.site_to_ecef_km`).
 """
 
 from __future__ import annotations
@@ -12,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from ..io.errors import InputError
-from ..orbits.frames import MEAN_EARTH_RADIUS_KM, enu_basis, geodetic_to_ecef_km
+from ..orbits.frames import MEAN_EARTH_RADIUS_KM, enu_basis, site_to_ecef_km
 from ..orbits.timebase import Epoch, parse_utc
 from .csvfile import read_numeric_csv
 
@@ -22,9 +23,10 @@ class Static:
 
     max_speed_m_s = 0.0
 
-    def __init__(self, lat_deg: float, lon_deg: float, alt_m: float):
+    def __init__(self, lat_deg: float, lon_deg: float, alt_m: float, earth: str = "wgs84"):
         self.lat_deg, self.lon_deg, self.alt_m = float(lat_deg), float(lon_deg), float(alt_m)
-        self._r = geodetic_to_ecef_km(self.lat_deg, self.lon_deg, self.alt_m)
+        self.earth = earth
+        self._r = site_to_ecef_km(self.lat_deg, self.lon_deg, self.alt_m, earth)
         self._basis = enu_basis(self.lat_deg, self.lon_deg)
 
     def geodetic(self, t_s: np.ndarray):
@@ -44,12 +46,14 @@ class Static:
 class _Interpolated:
     """Linear interpolation of geodetic coordinates between nodes; held constant outside."""
 
-    def __init__(self, t_s: np.ndarray, lat_deg: np.ndarray, lon_deg: np.ndarray, alt_m: np.ndarray):
+    def __init__(self, t_s: np.ndarray, lat_deg: np.ndarray, lon_deg: np.ndarray, alt_m: np.ndarray,
+                 earth: str = "wgs84"):
+        self.earth = earth
         self.t_s = np.asarray(t_s, dtype=float)
         self.lat = np.asarray(lat_deg, dtype=float)
         self.lon = np.unwrap(np.asarray(lon_deg, dtype=float), period=360.0)
         self.alt = np.asarray(alt_m, dtype=float)
-        r = geodetic_to_ecef_km(self.lat, self.lon, self.alt)
+        r = site_to_ecef_km(self.lat, self.lon, self.alt, earth)
         if self.t_s.size > 1:
             seg_v = np.diff(r, axis=0) / np.diff(self.t_s)[:, None]
             self.max_speed_m_s = float(np.max(np.linalg.norm(seg_v, axis=1)) * 1000.0)
@@ -67,7 +71,7 @@ class _Interpolated:
     def ecef(self, t_s: np.ndarray):
         t = np.asarray(t_s, dtype=float)
         lat, lon, alt = self.geodetic(t)
-        r = geodetic_to_ecef_km(lat, lon, alt)
+        r = site_to_ecef_km(lat, lon, alt, self.earth)
         if self._seg_v.shape[0]:
             seg = np.clip(np.searchsorted(self.t_s, t, side="right") - 1, 0, self._seg_v.shape[0] - 1)
             inside = (t >= self.t_s[0]) & (t <= self.t_s[-1])
@@ -86,7 +90,7 @@ class Track(_Interpolated):
 
     @classmethod
     def from_csv(cls, path: str | Path, epoch: Epoch, duration_s: float,
-                 max_speed_m_s: float, warn=print) -> "Track":
+                 max_speed_m_s: float, warn=print, earth: str = "wgs84") -> "Track":
         rows = read_numeric_csv(path, ("time", "lat_deg", "lon_deg", "alt_m"), text_columns=("time",))
         t, lat, lon, alt, lines = [], [], [], [], []
         for line, row in rows:
@@ -109,7 +113,7 @@ class Track(_Interpolated):
             lon.append(row["lon_deg"])
             alt.append(row["alt_m"])
             lines.append(line)
-        track = cls(np.array(t), np.array(lat), np.array(lon), np.array(alt))
+        track = cls(np.array(t), np.array(lat), np.array(lon), np.array(alt), earth)
         if track._seg_v.shape[0]:
             speeds = np.linalg.norm(track._seg_v, axis=1) * 1000.0
             k = int(np.argmax(speeds))
@@ -135,7 +139,8 @@ class Drive(_Interpolated):
     """
 
     def __init__(self, lat_deg: float, lon_deg: float, alt_m: float, speed_m_s: float,
-                 heading_deg: float, duration_s: float, start_m: float = 0.0):
+                 heading_deg: float, duration_s: float, start_m: float = 0.0,
+                 earth: str = "wgs84"):
         self.speed_m_s = float(speed_m_s)
         self.start_m = float(start_m)
         n = max(2, int(np.ceil(duration_s / 60.0)) + 1)  # nodes every <= 60 s: arcs stay straight
@@ -145,7 +150,7 @@ class Drive(_Interpolated):
         lat2 = np.arcsin(np.sin(lat1) * np.cos(d) + np.cos(lat1) * np.sin(d) * np.cos(h))
         lon2 = lon1 + np.arctan2(np.sin(h) * np.sin(d) * np.cos(lat1),
                                  np.cos(d) - np.sin(lat1) * np.sin(lat2))
-        super().__init__(t, np.degrees(lat2), np.degrees(lon2), np.full(n, float(alt_m)))
+        super().__init__(t, np.degrees(lat2), np.degrees(lon2), np.full(n, float(alt_m)), earth)
 
     def along_m(self, t_s: np.ndarray) -> np.ndarray:
         return self.start_m + self.speed_m_s * np.asarray(t_s, dtype=float)

@@ -24,6 +24,7 @@ WGS84_E2 = WGS84_F * (2.0 - WGS84_F)
 EARTH_RATE_RAD_S = 7.292115146706979e-5
 SPEED_OF_LIGHT_KM_S = 299792.458
 MEAN_EARTH_RADIUS_KM = 6371.0  # the radius the 3GPP NTN tables use
+EARTH_MODELS = ("wgs84", "sphere")  # [scenario] earth: where sites sit and which way is up
 
 
 def gmst_rad(jd_ut1: np.ndarray, fr_ut1: np.ndarray) -> np.ndarray:
@@ -43,6 +44,27 @@ def geodetic_to_ecef_km(lat_deg: np.ndarray, lon_deg: np.ndarray, alt_m: np.ndar
     n = WGS84_A_KM / np.sqrt(1.0 - WGS84_E2 * sl * sl)
     return np.stack([(n + h) * cl * np.cos(lon), (n + h) * cl * np.sin(lon),
                      (n * (1.0 - WGS84_E2) + h) * sl], axis=-1)
+
+
+def site_to_ecef_km(lat_deg: np.ndarray, lon_deg: np.ndarray, alt_m: np.ndarray,
+                    earth: str = "wgs84") -> np.ndarray:
+    """A site's Earth-fixed position (km), shape (..., 3), on the scenario's Earth model.
+
+    ``"wgs84"``: geodetic coordinates on the WGS-84 ellipsoid (:func:`geodetic_to_ecef_km`).
+    ``"sphere"``: latitude and height on a sphere of radius ``MEAN_EARTH_RADIUS_KM`` (6371 km,
+    the radius 3GPP TR 38.821 uses), so the site's up direction is radial and geocentric and
+    geodetic latitude coincide; analytic formulas on a sphere then see the simulated geometry.
+    :func:`enu_basis` gives the up direction for both (on the sphere the normal is radial).
+    """
+    if earth == "sphere":
+        lat = np.radians(lat_deg)
+        lon = np.radians(lon_deg)
+        rad = MEAN_EARTH_RADIUS_KM + np.asarray(alt_m, dtype=float) / 1000.0
+        return np.stack([rad * np.cos(lat) * np.cos(lon), rad * np.cos(lat) * np.sin(lon),
+                         rad * np.sin(lat)], axis=-1)
+    if earth != "wgs84":
+        raise ValueError(f"unknown Earth model {earth!r} (known: {', '.join(EARTH_MODELS)})")
+    return geodetic_to_ecef_km(lat_deg, lon_deg, alt_m)
 
 
 def enu_basis(lat_deg: np.ndarray, lon_deg: np.ndarray) -> np.ndarray:
