@@ -145,7 +145,8 @@ def test_sinr_rows_on_a_synthetic_run_folder(iso_run, tmp_path, monkeypatch):
     run = tmp_path / "run"
     run.mkdir()
     for f in iso_run.iterdir():
-        (run / f.name).write_bytes(f.read_bytes())
+        if f.name != "sinr_ccdf.parquet":          # the missing-file case first
+            (run / f.name).write_bytes(f.read_bytes())
     real_load = cmp_mod.load_scenario
 
     def with_interference(path, **kw):          # the [link] key the cells work adds
