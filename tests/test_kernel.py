@@ -216,8 +216,14 @@ def expected_until_lost(passes: pd.DataFrame, sat_of: dict[str, int], duration_s
     """Links an until-lost terminal must have, from the passes table alone (execution model of
     dwell.kernel.common with N310 = 1): a pass that rises before the serving one sets is reached
     by a handover at the set instant (the new link starts after the break); otherwise the link
-    fails T310 after the first measurement instant past the set, and the next pass is reached by
-    re-establishment at its first measurement instant plus the re-establishment time."""
+    fails T310 after the first out-of-sync indication, and the next pass is reached by
+    re-establishment at its first measurement instant plus the re-establishment time.
+
+    TS 38.133 section 8.1 (values from memory): indications every 20 ms (max(10 ms, the 20 ms
+    SSB period)), out-of-sync judged on the mean quality of the last 200 ms.  The serving SNR
+    before a set is far above Q_out + 10 dB, so the window's mean stays above Q_out until the
+    whole window lies after the set: the first out-of-sync indication is the first multiple of
+    20 ms whose window's oldest sample (180 ms earlier) is at or after the set."""
     p = passes.sort_values("rise_s")
     sat = [sat_of[s] for s in p["satellite"]]
     rise = p["rise_s"].to_numpy()
@@ -238,7 +244,7 @@ def expected_until_lost(passes: pd.DataFrame, sat_of: dict[str, int], duration_s
             out.append((sat[i], start, fall[i], reason, "handover"))
             start, reason = fall[i] + break_s, "handover"
             continue
-        t_fail = first_row(fall[i]) + t310_s
+        t_fail = math.ceil((fall[i] + 0.18) / 0.02 - 1e-9) * 0.02 + t310_s
         if t_fail >= duration_s:
             out.append((sat[i], start, duration_s, reason, "end"))
             break

@@ -16,7 +16,8 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy
 from ..radio.measure import row_at_or_after
-from .common import PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s, monitoring
+from .common import PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s
+from .rlm import RlmTiming, indications, weak_intervals
 
 FIRST_ROWS = 64
 
@@ -27,6 +28,7 @@ class FastRun(KernelRun):
     def __init__(self, env: simpy.Environment, policy: Policy, execution: Execution):
         super().__init__(env, policy, execution)
         self._n = FIRST_ROWS                  # rows to look at first; adapts to link lengths
+        self.rlm = RlmTiming.of(self.stream.lp)
         self.process = env.process(self._run())
 
     # ---- helpers -------------------------------------------------------------------------------
@@ -105,10 +107,12 @@ class FastRun(KernelRun):
                     e0 = self.stream.window_end_covering(sat, t_c)
                     e0 = t_c if e0 is None else e0
             horizon = math.inf if rows.final else float(rows.t_s[-1])
-            col, oos, ins, weak = monitoring(rows, cell, e0, s.q_out_db, s.q_in_db)
+            col = rows.column_of_cell(cell)
+            t_i, oos, ins = indications(rows, col, t_c, s.duration_s if rows.final else horizon,
+                                        t_c, e0, self.rlm, keep_good=s.n311 + 1)
             release = t_c + s.min_dwell_s
             if s.min_dwell_s > 0 and oos.any():
-                release = min(release, float(rows.t_s[int(np.argmax(oos))]))
+                release = min(release, float(t_i[int(np.argmax(oos))]))
             link = Link(sat, t_c, release, 1 if rows.t_s[0] <= ex.decided_at else 0, e0,
                         cell=cell)
             events = []
@@ -122,7 +126,7 @@ class FastRun(KernelRun):
                 loss = self._loss(rows, rows.column_of(sat), sat, e0, horizon, t_c)
                 if loss is not None:
                     events.append((loss.time_s, PRIORITY["loss"], "loss", loss))
-            t_f = first_rlf_s(oos, ins, rows.t_s, s.n310, s.n311, s.t310_s)
+            t_f = first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
             if math.isfinite(t_f):
                 events.append((t_f, PRIORITY["rlf"], "rlf", None))
             events.append((s.duration_s, PRIORITY["end"], "end", None))
@@ -132,14 +136,13 @@ class FastRun(KernelRun):
             n *= 2
         used = int(math.ceil((min(when, s.duration_s) - t_c) / s.period_s)) + 2
         self._n = int(min(4096, max(32, 2 * used)))
+        t_rec = min(when, s.duration_s)
+        ex.rec.weak.extend(weak_intervals(rows, col, t_c, t_rec, e0, s.q_out_db))
+        ex.record_sinr(rows, col, t_c, t_rec)
         if when >= s.duration_s:
-            ex.record_weak(rows, weak, t_c, s.duration_s)
-            ex.record_sinr(rows, col, t_c, s.duration_s)
             yield self._wait_until(s.duration_s)
             ex.close_link(s.duration_s, "end")
             return None
-        ex.record_weak(rows, weak, t_c, when)
-        ex.record_sinr(rows, col, t_c, when)
         yield self._wait_until(when)
         if kind == "rlf":
             return ("rlf", when, None)

@@ -18,12 +18,14 @@ import simpy
 from ..policies.base import Decision, Link, Policy, Rows
 from ..radio.measure import row_at_or_after
 from .common import PRIORITY, Execution, KernelRun, switch_start, switch_target
+from .rlm import RlmTiming, indications, weak_intervals
 
 
 class NaiveRun(KernelRun):
     def __init__(self, env: simpy.Environment, policy: Policy, execution: Execution):
         super().__init__(env, policy, execution)
         self._block: Rows | None = None
+        self.rlm = RlmTiming.of(self.stream.lp)
         self.process = env.process(self._run())
 
     def _rows_at(self, k: int) -> tuple[Rows, int]:
@@ -98,6 +100,7 @@ class NaiveRun(KernelRun):
         oc = ic = 0
         expiry = None
         weak_from = len(ex.rec.weak)
+        win_s = max(self.rlm.evaluation_out_s, self.rlm.evaluation_in_s)
         t_sw = None                               # scheduled switch of an earth-fixed cell
         prev_nocell = False                       # the previous row had no serving-satellite cell
         sinr_seen: list[tuple[float, float]] = []
@@ -128,29 +131,36 @@ class NaiveRun(KernelRun):
                     sat_col = j
             measured = col >= 0
             sinr = rows.sinr_db[r, col] if measured else -math.inf
-            out_of_sync = (not measured) or sinr < s.q_out_db
-            in_sync = measured and sinr >= s.q_in_db
-            if (measured and sinr < s.q_out_db) or (not measured and t_k < losses_first):
-                ex.rec.weak.append((t_k, t_k + dt))
             if measured:
                 sinr_seen.append((t_k, float(sinr)))
-            if out_of_sync:
-                oc, ic = oc + 1, 0
-                if expiry is None and oc >= s.n310:
-                    expiry = t_k + s.t310_s
-                if link.release_s > t_k:
-                    link.release_s = t_k          # the guard lifts when the link is lost
-            elif in_sync:
-                ic, oc = ic + 1, 0
-                if expiry is not None and ic >= s.n311 and t_k < expiry:
-                    expiry, oc, ic = None, 0, 0
+            # radio link monitoring: every indication instant up to the next row, judged on the
+            # quality of the last evaluation window (rows reaching back over it, and the next)
+            t_next = (k + 1) * dt
+            k_lo = max(kc, k - int(math.ceil(win_s / dt)) - 1)
+            near = self.stream.rows(k_lo, k + 2)
+            col_near = near.column_of_cell(cell)
+            t_from = t_c if k == kc else t_k
+            t_to = min(t_next, s.duration_s)
+            ex.rec.weak.extend(weak_intervals(near, col_near, t_from, t_to, losses_first,
+                                              s.q_out_db))
+            for ti, out_i, in_i in zip(*indications(near, col_near, t_from, t_to, t_c,
+                                                    losses_first, self.rlm)):
+                if out_i:
+                    oc, ic = oc + 1, 0
+                    if expiry is None and oc >= s.n310:
+                        expiry = float(ti) + s.t310_s
+                    if link.release_s > ti:
+                        link.release_s = float(ti)    # the guard lifts when the link is lost
+                elif in_i:
+                    ic, oc = ic + 1, 0
+                    if expiry is not None and ic >= s.n311 and ti < expiry:
+                        expiry, oc, ic = None, 0, 0
             if sat_col >= 0 and rows.end_s[r, sat_col] not in losses:
                 losses.append(float(rows.end_s[r, sat_col]))
             # inside the first window, the serving satellite's beams stop covering the terminal
             if sat_col < 0 and t_k < losses_first and not prev_nocell and t_k not in losses:
                 losses.append(t_k)
             prev_nocell = sat_col < 0 and t_k < losses_first
-            t_next = (k + 1) * dt
             events = []
             d = self.policy.step(rows, r, link) if t_k > ex.decided_at else None
             if d is not None and d.time_s < t_next:

@@ -318,7 +318,25 @@ KEYS: dict[str, Field] = {
                               doc="atmospheric, polarisation and other losses, lumped"),
     "shadowing_std_db": number(0.0, between(0, 30), doc="log-normal shadowing std; 0 = off"),
     "shadowing_decorrelation_s": number(10.0, gt(0), doc="shadowing correlation time"),
-    "measurement_noise_db": number(0.0, between(0, 30), doc="RSRP measurement error std; 0 = off"),
+    "measurement_noise_db": number(0.0, between(0, 30), doc="RSRP error std of each layer-1 "
+                                   "measurement (one every l1_period_s); 0 = off"),
+    "detection_sinr_db": Field((int, float), None, (between(-40, 40),),
+                               "cells below this SINR are not detected, hence not measured "
+                               "(TS 38.133 intra-frequency side condition SS-SINR >= -6 dB, "
+                               "from memory); default: every cell near the terminal is measured"),
+    "ssb_period_s": Field((int, float), 0.02, (),
+                          "SSB (and RLM reference signal) periodicity; sets the radio link "
+                          "monitoring cadence (TS 38.213 default 20 ms for initial access)",
+                          choices=(0.005, 0.01, 0.02, 0.04, 0.08, 0.16)),
+    "rlm_indication_s": Field((int, float), None, (between(0.001, 1.0),),
+                              "interval between in-sync/out-of-sync indications (default "
+                              "max(10 ms, ssb_period_s): TS 38.133 section 8.1, from memory)"),
+    "rlm_evaluation_out_s": Field((int, float), None, (between(0.001, 10.0),),
+                                  "window over which out-of-sync is judged (default max(200 ms, "
+                                  "10 ssb_period_s): TS 38.133 section 8.1.2, from memory)"),
+    "rlm_evaluation_in_s": Field((int, float), None, (between(0.001, 10.0),),
+                                 "window over which in-sync is judged (default max(100 ms, "
+                                 "5 ssb_period_s): TS 38.133 section 8.1.2, from memory)"),
     "l3_filter_k": Field((int,), 4, (), "TS 38.331 filterCoefficient k (0 = no filtering)",
                          choices=FILTER_COEFFICIENTS),
     "l1_period_s": number(0.2, gt(0), le(10), doc="L1 measurement period the k refers to"),
@@ -366,6 +384,12 @@ def check_table(raw: dict[str, Any], source: str,
                              "unknown preset (known: " + ", ".join(sorted(PRESETS)) + ")")
         raw = {**PRESETS[preset].values, **raw}
     out = _check_spec(raw, KEYS, source, "link")
+    ssb = float(out["ssb_period_s"])
+    for key, value in (("rlm_indication_s", max(0.01, ssb)),
+                       ("rlm_evaluation_out_s", max(0.2, 10 * ssb)),
+                       ("rlm_evaluation_in_s", max(0.1, 5 * ssb))):
+        if out[key] is None:
+            out[key] = value
     if out["q_in_sinr_db"] < out["q_out_sinr_db"]:
         raise InputError(source, "link.q_in_sinr_db", out["q_in_sinr_db"],
                          f"must be >= link.q_out_sinr_db ({out['q_out_sinr_db']:g})")

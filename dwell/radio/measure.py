@@ -154,6 +154,7 @@ class MeasurementStream:
         self.pin = 0                      # rows below this may be dropped
         self._readers: dict[int, int] = {}
         self._carry_filter: dict[int, float] = {}
+        self._carry_l1: dict[int, tuple[int, float, float]] = {}   # run -> (j, filter, raw)
         self._carry_shadow: dict[int, float] = {}
         self._carry_nlos: dict[int, float] = {}
         self._runs = _RunLedger()
@@ -295,8 +296,9 @@ class MeasurementStream:
             for w in [w for w in store if ended[w] <= k_b * dt]:
                 del store[w]
         live = {rid for rid, _ in self._runs.open.values()}
-        for rid in [r for r in self._carry_filter if r not in live]:
-            del self._carry_filter[rid]
+        for store in (self._carry_filter, self._carry_l1):
+            for rid in [r for r in store if r not in live]:
+                del store[rid]
 
     def _note_uncovered(self, rows_k: np.ndarray) -> None:
         """Instants with a satellite in view but no cell measured, as [t_k, t_k + dt) runs."""
@@ -390,31 +392,30 @@ class MeasurementStream:
             snr -= nlos[cs.pair]
         row = k[cs.pair] - k_a
         sinr = interference.sinr_db(snr, row, cs.colour, cs.load, nb, self.interference)
-        # measured cells only, ordered by cell run (window, cell), then row
-        m = np.flatnonzero(cs.measured)
+        # measured cells only (and detectable: SINR at or above the detection threshold, when
+        # one is set), ordered by cell run (window, cell), then row
+        detect = self.lp.get("detection_sinr_db")
+        m = np.flatnonzero(cs.measured & (sinr >= detect) if detect is not None else cs.measured)
         order = m[np.lexsort((k[cs.pair[m]], cs.cell[m], win[cs.pair[m]]))]
         pr = cs.pair[order]
         cell, beam = cs.cell[order], cs.beam[order]
         kk = k[pr]
         new_run = np.ones(order.size, bool)
         new_run[1:] = (win[pr][1:] != win[pr][:-1]) | (cell[1:] != cell[:-1]) | (kk[1:] != kk[:-1] + 1)
-        meas = rsrp[order]
-        mstd = float(self.lp["measurement_noise_db"])
-        if mstd > 0:
-            # beam 0 keeps the single-beam draws (key = terminal and satellite); other beams and
-            # ground cells draw on their own streams with the cell folded into the key
-            ground = cellmod.is_ground(cell)
-            stream = np.where(ground, _MEASURE_GROUND, np.where(beam > 0, _MEASURE_BEAM, _MEASURE))
-            mkey = np.where(ground, key[pr] * 7919 + (cell - cellmod.GROUND_BASE),
-                            np.where(beam > 0, key[pr] * cellmod.BEAM_STRIDE + beam, key[pr]))
-            meas = rsrp[order] + mstd * _normal_streams(self.seed, stream, mkey, kk)
+        # measurement-noise draws: beam 0 keeps the single-beam key (terminal and satellite);
+        # other beams and ground cells draw on their own streams with the cell in the key
+        ground = cellmod.is_ground(cell)
+        stream = np.where(ground, _MEASURE_GROUND, np.where(beam > 0, _MEASURE_BEAM, _MEASURE))
+        mkey = np.where(ground, key[pr] * 7919 + (cell - cellmod.GROUND_BASE),
+                        np.where(beam > 0, key[pr] * cellmod.BEAM_STRIDE + beam, key[pr]))
         runs = {"win": win[pr][new_run], "cell": cell[new_run], "first": kk[new_run],
                 "last": np.append(kk[np.flatnonzero(new_run)[1:] - 1], kk[-1:]) if kk.size
                 else kk}
+        runs["stream"], runs["key"] = stream[new_run], mkey[new_run]
         self.samples += order.size
         return (runs, new_run), {
             "pair_sat": sat[pr], "pair_win": win[pr], "row": kk - k_a, "k": kk, "cell": cell,
-            "beam": beam, "raw": meas, "snr_db": snr[order], "sinr_db": sinr[order],
+            "beam": beam, "true": rsrp[order], "snr_db": snr[order], "sinr_db": sinr[order],
             "elevation_deg": lk["elevation_deg"][pr], "azimuth_deg": lk["azimuth_deg"][pr],
             "range_km": lk["range_km"][pr], "nadir_km": nadir_km[pr], "ref_km": cs.ref_km[order],
             "until_s": cs.until_s[order],
@@ -439,10 +440,16 @@ class MeasurementStream:
         ids, cols = self._runs.assign(runs["win"], runs["cell"], runs["first"], runs["last"],
                                       k_a, k_b)
         run_of = np.cumsum(new_run) - 1
-        # a run continuing from the previous block carries its filter state in (same run id)
-        filt, last = linkmod.l3_filter_blocks(vals["raw"], new_run, self.alpha,
+        # the signal's own filtering, at the row rate with the period-adapted weight; a run
+        # continuing from the previous block carries its filter state in (same run id)
+        filt, last = linkmod.l3_filter_blocks(vals["true"], new_run, self.alpha,
                                               self._carried(self._carry_filter, ids))
         self._store(self._carry_filter, ids, last)
+        raw = vals["true"]
+        if float(self.lp["measurement_noise_db"]) > 0:
+            noise_f, noise_raw = self._l1_noise(runs, new_run, ids, run_of, vals["k"])
+            filt = filt + noise_f
+            raw = raw + noise_raw
         nb = k_b - k_a
         width = int(cols.max()) + 1
         blk = {f: np.full((nb, width), -1 if f in INT_FIELDS else np.nan,
@@ -458,11 +465,66 @@ class MeasurementStream:
         # a cell's service ends with its satellite's window, or earlier at a cell switch
         blk["cell_end_s"][r, c] = np.fmin(idx.end_s[vals["pair_win"]], vals["until_s"])
         blk["rsrp_dbm"][r, c] = filt
-        blk["rsrp_raw_dbm"][r, c] = vals["raw"]
+        blk["rsrp_raw_dbm"][r, c] = raw
         for f in ("snr_db", "sinr_db", "elevation_deg", "azimuth_deg", "range_km", "nadir_km",
                   "ref_km", "range_rate_km_s"):
             blk[f][r, c] = vals[f]
         return blk
+
+    def _l1_noise(self, runs, new_run, ids, run_of, k) -> tuple[np.ndarray, np.ndarray]:
+        """Measurement noise of each measured sample: filtered (into the RSRP the policies read)
+        and raw (the latest layer-1 measurement).
+
+        Layer-1 measurements come every ``l1_period_s`` on a grid of their own (index
+        ``j = floor(t / l1_period_s)``), each with an error of ``measurement_noise_db``; the
+        layer-3 filter (TS 38.331 section 5.5.3.2) runs at that rate with weight
+        ``1 / 2^(k/4)``, and a row reads the filter after the latest layer-1 measurement at or
+        before it.  So the filtered noise is the same process whatever ``measurement_period_s``
+        is (the signal's own slow variation is filtered at the row rate).  Draws are keyed by
+        the cell and j, never by the row."""
+        from . import cells as cellmod  # noqa: F401  (keys come precomputed with the runs)
+
+        l1 = float(self.lp["l1_period_s"])
+        a = 1.0 / 2.0 ** (int(self.lp["l3_filter_k"]) / 4.0)
+        std = float(self.lp["measurement_noise_db"])
+        j_of = np.floor(k * self.period_s / l1 + 1e-9).astype(np.int64)
+        n_runs = ids.size
+        first = np.flatnonzero(new_run)
+        last = np.append(first[1:] - 1, k.size - 1)
+        carry_j = np.full(n_runs, -1, dtype=np.int64)
+        carry_f = np.full(n_runs, np.nan)
+        carry_e = np.full(n_runs, np.nan)
+        for i, rid in enumerate(ids.tolist()):
+            c = self._carry_l1.get(rid)
+            if c is not None:
+                carry_j[i], carry_f[i], carry_e[i] = c
+        cont = carry_j >= 0
+        j_start = np.where(cont, carry_j + 1, j_of[first])
+        j_end = np.maximum(j_of[last], j_start - 1)                  # empty when no new sample
+        counts = j_end - j_start + 1
+        seq_j = _ranges(j_start, j_end + 1)
+        seq_run = np.repeat(np.arange(n_runs), counts)
+        e = std * _normal_streams(self.seed, runs["stream"][seq_run], runs["key"][seq_run], seq_j)
+        seg = np.zeros(seq_j.size, bool)
+        base = np.cumsum(counts) - counts
+        seg[base[counts > 0]] = True
+        has = counts > 0
+        f_seq, f_last = linkmod.l3_filter_blocks(e, seg, a, carry_f[has]) if e.size else \
+            (e, np.zeros(0))
+        # each sample reads the filter after its latest layer-1 measurement
+        idx = base[run_of] + (j_of - j_start[run_of])
+        fresh = j_of >= j_start[run_of]
+        safe = np.clip(idx, 0, max(e.size - 1, 0))
+        noise_f = np.where(fresh, f_seq[safe] if e.size else 0.0, carry_f[run_of])
+        noise_raw = np.where(fresh, e[safe] if e.size else 0.0, carry_e[run_of])
+        end_f = carry_f.copy()
+        end_e = carry_e.copy()
+        end_f[has] = f_last
+        end_e[has] = e[base[has] + counts[has] - 1]
+        for i, rid in enumerate(ids.tolist()):
+            self._carry_l1[rid] = (int(j_end[i]) if counts[i] > 0 else int(carry_j[i]),
+                                   float(end_f[i]), float(end_e[i]))
+        return noise_f, noise_raw
 
     def _range_rate(self, rng: np.ndarray, seg_start: np.ndarray) -> np.ndarray:
         """Range rate by central differences along each window's rows (one-sided at its ends

@@ -1,0 +1,190 @@
+"""Radio link monitoring on the TS 38.133 cadence, independent of the simulation's row period.
+
+The serving cell's quality between measurement rows is its SINR interpolated linearly in dB
+(held at the last row when the next row no longer measures the cell; minus infinity once its
+satellite's window has ended, exactly at the window's end, or where the cell is not measured).
+Every ``rlm_indication_s`` (TS 38.133 section 8.1: the indication interval, max(10 ms, the RLM
+reference signal period), from memory) the physical layer reports:
+
+- out-of-sync when the quality averaged (in linear units) over the last ``rlm_evaluation_out_s``
+  (200 ms for FR1 without DRX, from memory) is below ``q_out_sinr_db``;
+- in-sync when the average over the last ``rlm_evaluation_in_s`` (100 ms) is at or above
+  ``q_in_sinr_db``; neither in between.
+
+Windows reach back at most to the link's start.  Averages are taken over the window's
+indication instants.  Only indications whose windows touch a row interval that is not plainly
+good (both ends measured at or above ``q_in``, no window end inside) are computed; the others
+are in-sync, since a linear interpolation of two values at or above a threshold stays above it.
+Cost: one boolean per indication instant plus a small window average per doubtful one.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..policies.base import Rows
+
+
+@dataclass(frozen=True)
+class RlmTiming:
+    indication_s: float
+    evaluation_out_s: float
+    evaluation_in_s: float
+    q_out_db: float
+    q_in_db: float
+
+    @classmethod
+    def of(cls, link_params: dict) -> "RlmTiming":
+        return cls(float(link_params["rlm_indication_s"]), float(link_params["rlm_evaluation_out_s"]),
+                   float(link_params["rlm_evaluation_in_s"]), float(link_params["q_out_sinr_db"]),
+                   float(link_params["q_in_sinr_db"]))
+
+
+def _row_values(rows: Rows, col: np.ndarray) -> np.ndarray:
+    rr = np.arange(rows.n)
+    return np.where(col >= 0, rows.sinr_db[rr, np.maximum(col, 0)], -np.inf)
+
+
+def quality_db(rows: Rows, col: np.ndarray, t: np.ndarray, e0: float) -> np.ndarray:
+    """The serving cell's quality (dB) at instants ``t`` (within the rows' span)."""
+    t = np.asarray(t, dtype=float)
+    v = _row_values(rows, col)
+    k = np.clip(np.searchsorted(rows.t_s, t, side="right") - 1, 0, rows.n - 1)
+    vk = v[k]
+    nxt = np.minimum(k + 1, rows.n - 1)
+    has_next = k + 1 < rows.n
+    vn = np.where(has_next, v[nxt], -np.inf)
+    tk, tn = rows.t_s[k], rows.t_s[nxt]
+    both = np.isfinite(vk) & np.isfinite(vn) & has_next
+    frac = np.where(both, (t - tk) / np.where(tn > tk, tn - tk, 1.0), 0.0)
+    with np.errstate(invalid="ignore"):          # masked: -inf ends are held, not mixed
+        out = np.where(both, vk + (np.where(both, vn, vk) - vk) * frac, vk)
+    # the serving window ended between the row and the instant: nothing to receive
+    return np.where((t >= e0) & (tk < e0), -np.inf, out)
+
+
+def _window_mean_db(rows, col, t_i, window_s, step_s, t_c, e0) -> np.ndarray:
+    m = max(1, int(round(window_s / step_s)))
+    back = t_i[:, None] - step_s * np.arange(m)[None, :]
+    ok = back >= t_c - 1e-9
+    q = quality_db(rows, col, np.maximum(back, t_c).ravel(), e0).reshape(back.shape)
+    lin = np.where(ok & np.isfinite(q), 10.0 ** (np.where(np.isfinite(q), q, 0.0) / 10.0), 0.0)
+    mean = lin.sum(axis=1) / np.maximum(ok.sum(axis=1), 1)
+    with np.errstate(divide="ignore"):
+        return 10.0 * np.log10(mean)
+
+
+def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: float, e0: float,
+                timing: RlmTiming, keep_good: int | None = None
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Indication instants in [t_from, t_to) (multiples of the interval) and their
+    out-of-sync and in-sync flags, for the link that started at ``t_c`` on the serving
+    column ``col`` of ``rows``.
+
+    With ``keep_good = n`` only the first n instants of each stretch of plainly good ones are
+    returned (all in-sync): enough for N310/N311/T310 (a stretch of n >= N311 in-sync
+    indications stops T310 and resets the counts as the whole stretch would), and it never
+    materialises the whole grid of a long link."""
+    T = timing.indication_s
+    i0 = math.ceil(t_from / T - 1e-9)
+    i1 = max(i0, math.ceil(t_to / T - 1e-9))
+    if i1 == i0:
+        z = np.zeros(0)
+        return z, np.zeros(0, bool), np.zeros(0, bool)
+    v = _row_values(rows, col)
+    # row interval k = [t_k, t_(k+1)) is plainly good if both ends are measured >= q_in and no
+    # window end falls inside; the last row's interval is good only if that row is
+    good = np.isfinite(v) & (v >= timing.q_in_db)
+    interval_good = good.copy()
+    interval_good[:-1] &= good[1:]
+    interval_good[:-1] &= ~((rows.t_s[:-1] < e0) & (e0 <= rows.t_s[1:]))
+    interval_good &= rows.t_s < e0
+    w = max(timing.evaluation_out_s, timing.evaluation_in_s)
+    # instants whose windows touch a doubtful interval: [t_k, t_(k+1) + w) for each bad k
+    bad = np.flatnonzero(~interval_good)
+    ends = np.append(rows.t_s[1:], np.inf)
+    lo = np.ceil(rows.t_s[bad] / T - 1e-9)
+    hi = np.ceil((np.minimum(ends[bad], t_to) + w) / T - 1e-9)
+    lo = np.clip(lo, i0, i1).astype(np.int64)
+    hi = np.clip(hi, i0, i1).astype(np.int64)
+    if keep_good is None:
+        idx = np.arange(i0, i1)
+        doubt = np.zeros(idx.size, bool)
+        for a, b in zip(lo.tolist(), hi.tolist()):
+            doubt[a - i0:b - i0] = True
+    else:
+        # merge the doubtful ranges; keep the first keep_good instants of every gap
+        order = np.argsort(lo, kind="stable")
+        lo, hi = lo[order], hi[order]
+        keep = hi > lo
+        lo, hi = lo[keep], hi[keep]
+        if lo.size:
+            reach = np.maximum.accumulate(hi)
+            new = np.concatenate([[True], lo[1:] > reach[:-1]])
+            lo, hi = lo[new], np.maximum.reduceat(hi, np.flatnonzero(new))
+        gap_lo = np.concatenate([[i0], hi])
+        gap_hi = np.concatenate([lo, [i1]])
+        gap_hi = np.minimum(gap_hi, gap_lo + keep_good)
+        parts = [np.arange(a, b) for a, b in zip(lo.tolist(), hi.tolist())]
+        parts += [np.arange(a, b) for a, b in zip(gap_lo.tolist(), gap_hi.tolist()) if b > a]
+        idx = np.unique(np.concatenate(parts)) if parts else np.zeros(0, np.int64)
+        doubt = np.zeros(idx.size, bool)
+        for a, b in zip(lo.tolist(), hi.tolist()):
+            doubt[np.searchsorted(idx, a):np.searchsorted(idx, b)] = True
+    t_i = idx * T
+    oos = np.zeros(t_i.size, bool)
+    ins = np.ones(t_i.size, bool)
+    d = np.flatnonzero(doubt)
+    if d.size:
+        out_db = _window_mean_db(rows, col, t_i[d], timing.evaluation_out_s, T, t_c, e0)
+        in_db = _window_mean_db(rows, col, t_i[d], timing.evaluation_in_s, T, t_c, e0)
+        oos[d] = out_db < timing.q_out_db
+        ins[d] = in_db >= timing.q_in_db
+    return t_i, oos, ins
+
+
+def weak_intervals(rows: Rows, col: np.ndarray, t_from: float, t_to: float, e0: float,
+                   q_out_db: float) -> list[tuple[float, float]]:
+    """Where the serving satellite is in view but its cell's quality is below ``q_out_db``
+    (unmeasured included), within [t_from, t_to): exact crossings of the interpolated quality,
+    so the outage it causes does not depend on the row period."""
+    v = _row_values(rows, col)
+    out: list[tuple[float, float]] = []
+    n = rows.n
+    t = rows.t_s
+    v_next = np.append(v[1:], -np.inf)
+    cand = (t < t_to) & (np.append(t[1:], np.inf) > t_from)
+    cand &= ~np.isfinite(v) | (v < q_out_db) | (v_next < q_out_db)    # something below q_out
+    for k in np.flatnonzero(cand).tolist():
+        a, b = float(t[k]), float(t[k + 1]) if k + 1 < n else math.inf
+        vk = float(v[k])
+        vn = float(v[k + 1]) if k + 1 < n else -math.inf
+        if not math.isfinite(vk):
+            if a < e0:                          # in view, cell not measured
+                seg = (a, min(b, e0))
+            else:
+                continue
+        elif k + 1 < n and math.isfinite(vn) and not (a < e0 < b):
+            if vk < q_out_db and vn < q_out_db:
+                seg = (a, b)
+            elif vk < q_out_db <= vn:
+                seg = (a, a + (q_out_db - vk) / (vn - vk) * (b - a))
+            elif vk >= q_out_db > vn:
+                seg = (a + (q_out_db - vk) / (vn - vk) * (b - a), b)
+            else:
+                continue
+        else:                                   # held at the row's value up to the window end
+            if vk < q_out_db:
+                seg = (a, min(b, e0) if a < e0 else b)
+            else:
+                continue
+        lo, hi = max(seg[0], t_from), min(seg[1], t_to)
+        if hi > lo:
+            if out and abs(out[-1][1] - lo) < 1e-12:
+                out[-1] = (out[-1][0], hi)
+            else:
+                out.append((lo, hi))
+    return out
