@@ -72,7 +72,7 @@ def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool =
         row = {"terminal": res.terminal, "policy": res.policy}
         row.update(summarize(lf, hf, of, vis, budget, geo.duration_s,
                              len(res.records.failures), res.records.preparing, scen.seed,
-                             res.records.sinr))
+                             res.records.sinr, len(res.records.idle)))
         sc = sinr_ccdf_frame(res.records.sinr)
         sc.insert(0, "policy", res.policy)
         sc.insert(0, "terminal", res.terminal)

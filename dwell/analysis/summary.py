@@ -65,7 +65,8 @@ def _worst_hour(t: np.ndarray, edges: np.ndarray) -> int:
 
 def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFrame,
               visible: pd.DataFrame, budget: dict[str, float], duration_s: float,
-              failures: int, preparing: list[tuple], seed: int, sinr=None) -> dict:
+              failures: int, preparing: list[tuple], seed: int, sinr=None,
+              idle: int = 0) -> dict:
     """One summary row for one run (see the module docstring for the intervals).
 
     Handovers count every change of serving cell; ``satellite_changes`` only those to another
@@ -140,6 +141,7 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         "ping_pong_rate": n_pp / n_ho if n_ho else 0.0,
         "ping_pong_per_hour_lo": pp_lo, "ping_pong_per_hour_hi": pp_hi,
         "radio_link_failures": int(failures),
+        "idle_transitions": int(idle),
         "serving_s": budget["serving_s"], "switching_s": budget["switching_s"],
         "outage_s": out_s,
         "switching_fraction": budget["switching_s"] / duration_s,

@@ -104,6 +104,8 @@ class RunSettings:
     q_out_db: float
     q_in_db: float
     ping_pong_window_s: float
+    t311_s: float = 3.0
+    q_rxlevmin_dbm: float = -140.0
 
     @classmethod
     def of(cls, terminal: dict, policy: Policy, link_params: dict, duration_s: float,
@@ -113,7 +115,8 @@ class RunSettings:
                    Hardware.from_terminal(terminal), int(p["n310"]), int(p["n311"]),
                    float(p["t310_s"]), float(p["reestablishment_s"]), float(p["min_dwell_s"]),
                    float(link_params["q_out_sinr_db"]), float(link_params["q_in_sinr_db"]),
-                   float(p["ping_pong_window_s"]))
+                   float(p["ping_pong_window_s"]), float(p.get("t311_s", 3.0)),
+                   float(p.get("q_rxlevmin_dbm", -140.0)))
 
 
 @dataclass
@@ -126,6 +129,7 @@ class Records:
     preparing: list[tuple] = field(default_factory=list)   # make-before-break re-pointing: start, end
     weak: list[tuple] = field(default_factory=list)        # serving in view but below q_out: start, end
     failures: list[float] = field(default_factory=list)    # radio link failure instants
+    idle: list[float] = field(default_factory=list)        # T311 expiries: the terminal went idle
     events: int = 0                                        # kernel wake-ups
     sinr: "SinrHistogram | None" = None                    # serving SINR per clock hour
 
@@ -217,6 +221,22 @@ def monitoring(rows: Rows, cell: int, in_view_until_s: float, q_out: float, q_in
     low = measured & (sinr < q_out)
     weak = low | (~measured & (rows.t_s < in_view_until_s))
     return col, ~measured | low, measured & (sinr >= q_in), weak
+
+
+def suitable(rows: Rows, q_rxlevmin_dbm: float, q_out_db: float) -> np.ndarray:
+    """Cells a terminal may camp on or re-establish to: TS 38.304 section 4.5, a suitable cell
+    fulfils the S-criterion (section 5.2.3.2): Srxlev = Qrxlevmeas - Qrxlevmin > 0 on the
+    filtered RSRP; its quality part (Squal > 0 on RSRQ, which is not modelled) is stood in
+    for by the SINR at or above Q_out, so the link does not fail again at once."""
+    with np.errstate(invalid="ignore"):
+        return (rows.sat >= 0) & (rows.rsrp_dbm > q_rxlevmin_dbm) & (rows.sinr_db >= q_out_db)
+
+
+def select_among(policy: Policy, rows: Rows, r: int, t_s: float, ok_row: np.ndarray) -> int:
+    """The policy's choice at row r among the cells ``ok_row`` allows (a column, or -1)."""
+    one = rows.take(r, r + 1)
+    one.sat = np.where(ok_row[None, :], one.sat, -1)
+    return policy.select(one, 0, t_s)
 
 
 def _value(arr: np.ndarray | None, r: int, c: int) -> float:

@@ -16,7 +16,8 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy
 from ..radio.measure import row_at_or_after
-from .common import PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s
+from .common import (PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s, select_among,
+                     suitable)
 from .rlm import RlmTiming, indications, weak_intervals
 
 FIRST_ROWS = 64
@@ -45,12 +46,16 @@ class FastRun(KernelRun):
         while True:
             found = self._acquire(t, initial)
             if found is None:
+                if not initial and t + self.s.t311_s < self.s.duration_s:
+                    self.ex.rec.idle.append(t + self.s.t311_s)    # T311 ran out: idle
                 break
-            (sat, cell, beam), t_link = found
+            (sat, cell, beam), t_link, reason = found
+            if reason == "setup":
+                self.ex.rec.idle.append(t + self.s.t311_s)
             if t_link >= self.s.duration_s:
                 break
             yield self._wait_until(t_link)
-            self.ex.open_link(sat, t_link, "initial" if initial else "reestablishment", cell, beam)
+            self.ex.open_link(sat, t_link, reason, cell, beam)
             initial = False
             while True:
                 outcome = yield from self._serve()
@@ -68,19 +73,27 @@ class FastRun(KernelRun):
         self.stream.release(self.stream.K, self)
 
     def _acquire(self, t_from: float, initial: bool):
-        """First measurement instant at or after t_from with a satellite in view."""
+        """First measurement instant at or after t_from with a suitable cell, and how the link
+        comes about: initial access; re-establishment while T311 runs (TS 38.331 5.3.7);
+        after T311 has expired, a new connection set up from idle."""
         k = self._row(t_from)
         n = FIRST_ROWS
+        s = self.s
         while k < self.stream.K:
             rows = self.stream.rows(k, k + n)
-            hit = np.flatnonzero((rows.sat >= 0).any(axis=1))
+            ok = suitable(rows, s.q_rxlevmin_dbm, s.q_out_db)
+            hit = np.flatnonzero(ok.any(axis=1))
             if hit.size:
                 r = int(hit[0])
                 t_r = float(rows.t_s[r])
-                col = self.policy.select(rows, r, t_r)
-                delay = 0.0 if initial else self.s.reestablishment_s
+                col = select_among(self.policy, rows, r, t_r, ok[r])
+                if initial:
+                    reason, delay = "initial", 0.0
+                else:
+                    reason = "reestablishment" if t_r < t_from + s.t311_s else "setup"
+                    delay = s.reestablishment_s
                 return (int(rows.sat[r, col]), int(rows.cell[r, col]), int(rows.beam[r, col])), \
-                    t_r + delay
+                    t_r + delay, reason
             k += rows.n
             self.stream.release(k, self)
             n *= 2

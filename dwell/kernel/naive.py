@@ -17,7 +17,8 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy, Rows
 from ..radio.measure import row_at_or_after
-from .common import PRIORITY, Execution, KernelRun, switch_start, switch_target
+from .common import (PRIORITY, Execution, KernelRun, select_among, suitable, switch_start,
+                     switch_target)
 from .rlm import RlmTiming, indications, weak_intervals
 
 
@@ -41,23 +42,31 @@ class NaiveRun(KernelRun):
         s, ex, dt = self.s, self.ex, self.s.period_s
         K = self.stream.K
         k, initial = 0, True
+        t_fail = 0.0
         while k < K:
-            # ---------------- down: wait for a satellite in view
+            # ---------------- down: wait for a suitable cell (T311 runs after a failure)
             t_k = k * dt
             yield self.env.timeout(t_k - self.env.now)
             ex.rec.events += 1
             rows, r = self._rows_at(k)
             self.stream.release(k, self)
-            present = [j for j in range(rows.sat.shape[1]) if rows.sat[r, j] >= 0]
-            if not present:
+            ok = suitable(rows, s.q_rxlevmin_dbm, s.q_out_db)[r]
+            if not ok.any():
                 k += 1
                 continue
-            col = self.policy.select(rows, r, t_k)
-            t_link = t_k if initial else t_k + s.reestablishment_s
+            col = select_among(self.policy, rows, r, t_k, ok)
+            if initial:
+                reason, t_link = "initial", t_k
+            else:
+                reason = "reestablishment" if t_k < t_fail + s.t311_s else "setup"
+                t_link = t_k + s.reestablishment_s
+                if reason == "setup":
+                    ex.rec.idle.append(t_fail + s.t311_s)
             if t_link >= s.duration_s:
+                initial = True                   # nothing pending past the end
                 break
             yield self.env.timeout(t_link - self.env.now)
-            ex.open_cell(rows, r, col, t_link, "initial" if initial else "reestablishment")
+            ex.open_cell(rows, r, col, t_link, reason)
             initial = False
             # ---------------- up: serve links until a failure
             while True:
@@ -69,10 +78,14 @@ class NaiveRun(KernelRun):
                     ex.close_link(t_next, "failure")
                     ex.rec.failures.append(t_next)
                     k = self._row(t_next)
+                    t_fail = t_next
                     break
                 if target is None:
                     return
                 ex.open_next(t_next)
+        else:
+            if not initial and t_fail + s.t311_s < s.duration_s:
+                ex.rec.idle.append(t_fail + s.t311_s)    # T311 ran out: idle
         self.stream.release(K, self)
 
     def _early_loss(self, rows: Rows, r: int, early: list[float], losses: list[float], sat: int):

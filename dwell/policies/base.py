@@ -49,8 +49,15 @@ COMMON_KEYS: dict[str, Field] = {
     "n310": integer(1, ge(1), doc="consecutive out-of-sync indications that start T310"),
     "n311": integer(1, ge(1), doc="consecutive in-sync indications that stop T310"),
     "t310_s": number(1.0, between(0, 6), doc="radio link failure timer (TS 38.331: 0-6000 ms)"),
-    "reestablishment_s": number(0.5, ge(0), doc="time to re-establish after a radio link failure"),
+    "reestablishment_s": number(0.5, ge(0), doc="time to re-establish after a radio link failure "
+                                "(or to set up a connection again from idle)"),
+    "t311_s": number(3.0, between(0, 30), doc="T311: how long the terminal looks for a suitable "
+                     "cell to re-establish on before it goes idle (TS 38.331: 1000-30000 ms)"),
+    "q_rxlevmin_dbm": number(-140.0, between(-160, -20), doc="Qrxlevmin of the S-criterion: the "
+                             "RSRP a suitable cell must exceed (TS 38.304; -140 dBm is the "
+                             "lowest value the IE allows, from memory)"),
 }
+T311_VALUES_MS = (1000, 3000, 5000, 10000, 15000, 20000, 30000)
 
 
 def warn_if_not_in(value_s: float, allowed_ms: tuple[int, ...], source: str, where: str,
@@ -191,6 +198,7 @@ class Policy:
               warn: Callable[[str], None]) -> None:
         """Cross-key checks and warnings; raise InputError for bad values."""
         warn_if_not_in(params["t310_s"], T310_VALUES_MS, source, f"{where}.t310_s", warn)
+        warn_if_not_in(params["t311_s"], T311_VALUES_MS, source, f"{where}.t311_s", warn)
         for key, allowed in (("n310", N310_VALUES), ("n311", N311_VALUES)):
             if params[key] not in allowed:
                 warn(f"warning: {source}: {where}.{key} = {params[key]} is not in the TS 38.331 "
