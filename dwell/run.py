@@ -65,7 +65,7 @@ def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool =
                               geo.duration_s, uncovered.get(k))
     links, hos, outs, rows, ccdfs, sinrs = [], [], [], [], [], []
     for res in results:
-        lf = links_frame(res, names, cname)
+        lf = links_frame(res, names, cname, cov[res.site_index])
         hf = handovers_frame(res, names, float(scen.link.get("frequency_ghz", 2.0)), cname)
         of, budget = outages_frame(res, cov[res.site_index])
         vis = visible[visible["terminal"] == res.terminal]

@@ -12,7 +12,9 @@ and each outage instant gets one cause:
 - ``weak-signal``: the serving satellite in view but its cell below the out-of-sync SINR, or
   not measured while other cells are;
 - ``failure``: satellites in view but the terminal has no usable link (lost serving satellite
-  not yet replaced, radio link failure, re-establishment).
+  not yet replaced, radio link failure, re-establishment);
+- ``repointing``: a make-before-break terminal's old link is gone while the aperture for the
+  new satellite is still slewing.
 """
 
 from __future__ import annotations
@@ -25,12 +27,19 @@ from ..kernel.common import HANDOVER_FIELDS, LINK_FIELDS
 from ..radio.link import doppler_hz, one_way_delay_ms
 from . import intervals as iv
 
-CAUSES = ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure", "switching")
+CAUSES = ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure", "repointing",
+          "switching")
 
 
-def links_frame(res: RunResult, names: list[str], cell_names=None) -> pd.DataFrame:
+def links_frame(res: RunResult, names: list[str], cell_names=None,
+                cov: "SiteCoverage | None" = None) -> pd.DataFrame:
     """One row per serving interval.  ``cell_names`` maps cell ids to readable names (see
-    :func:`dwell.radio.cells.cell_names`)."""
+    :func:`dwell.radio.cells.cell_names`).
+
+    A link lasts from its start to the event that ends it (handover, failure, end of run), so
+    it can hold through a blockage of its satellite (until radio link failure is declared):
+    ``dwell_s`` is the whole interval and, with ``cov``, ``blocked_s`` the part of it with the
+    serving satellite out of view (set or obstructed)."""
     links = res.records.links
     df = pd.DataFrame(links, columns=list(LINK_FIELDS))
     cells = df["cell"].to_numpy(dtype=np.int64)
@@ -46,6 +55,13 @@ def links_frame(res: RunResult, names: list[str], cell_names=None) -> pd.DataFra
         "end_reason": df["end_reason"].to_numpy(dtype=object),
         "sat_index": df["sat"].to_numpy(dtype=np.int64),
     })
+    if cov is not None:
+        a, b = df["start_s"].to_numpy(dtype=float), df["end_s"].to_numpy(dtype=float)
+        s, e, ia = iv.intersect_same_key(df["sat"].to_numpy(dtype=np.int64), a, b, cov.win_sat,
+                                         cov.win_start, cov.win_end)
+        seen = np.bincount(ia, weights=e - s, minlength=len(df)) if len(df) else np.zeros(0)
+        out.insert(out.columns.get_loc("dwell_s") + 1, "blocked_s",
+                   np.maximum((b - a) - seen, 0.0))
     return out
 
 
@@ -148,7 +164,9 @@ def outages_frame(res: RunResult, cov: SiteCoverage) -> tuple[pd.DataFrame, dict
                            cov.any_floor[1], la, lb, cov.pass_start[on_link], cov.pass_end[on_link],
                            np.array([w[0] for w in res.records.weak] +
                                     [w[1] for w in res.records.weak], dtype=float),
-                           cov.uncovered[0], cov.uncovered[1]])
+                           cov.uncovered[0], cov.uncovered[1],
+                           np.array([x[0] for x in res.records.preparing] +
+                                    [x[1] for x in res.records.preparing], dtype=float)])
     if oa.size:
         # cut points strictly inside an outage interval split it; every piece keeps one cause
         k = np.searchsorted(oa, cuts, side="right") - 1
@@ -174,6 +192,12 @@ def outages_frame(res: RunResult, cov: SiteCoverage) -> tuple[pd.DataFrame, dict
         cause[il[~in_win & in_pass]] = "obstruction"
         cause[~vis & floor] = "obstruction"
         cause[~vis & ~floor] = "no-satellite"
+        # make-before-break: the old link is gone while the new aperture is still slewing
+        prep = res.records.preparing
+        if prep:
+            pa, pb = iv.union(np.array([x[0] for x in prep]), np.array([x[1] for x in prep]))
+            slewing = iv.count_at(pa, pb, mid) > 0
+            cause[slewing & vis] = "repointing"
         # join neighbours with one cause
         same = np.concatenate([[False], (cause[1:] == cause[:-1]) & (s[1:] == e[:-1])])
         first = np.flatnonzero(~same)

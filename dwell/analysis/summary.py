@@ -112,7 +112,10 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
     prep_s = float(sum(b - a for a, b in preparing))
     rep = handovers["repoint_s"].to_numpy(dtype=float)[inter]
     t_sat = t_ho[inter]
-    need = 1 + iv.max_overlap(t_sat, t_sat + rep) if n_sat else 1
+    # make-before-break: to be ready at a satellite change, an aperture starts slewing
+    # repoint_s before it and then serves the new link to its end; the apertures needed are
+    # the most busy at once (serving or slewing) over the run
+    need = mbb_apertures(links, handovers)
     vis_dur = visible["duration_s"].to_numpy(dtype=float)
     vis_n = visible["in_view"].to_numpy(dtype=float)
     row = {
@@ -138,13 +141,18 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         "outage_mean_s": float((ob - oa).mean()) if oa.size else 0.0,
         "outage_max_s": float((ob - oa).max()) if oa.size else 0.0,
         "ping_pongs": n_pp,
-        "ping_pong_rate": n_pp / n_ho if n_ho else 0.0,
+        "ping_pongs_per_hour": n_pp / hours,
         "ping_pong_per_hour_lo": pp_lo, "ping_pong_per_hour_hi": pp_hi,
+        "ping_pong_fraction": n_pp / n_ho if n_ho else 0.0,
+        # kept for compatibility: the same per-handover fraction under its first name
+        "ping_pong_rate": n_pp / n_ho if n_ho else 0.0,
         "radio_link_failures": int(failures),
         "idle_transitions": int(idle),
         "serving_s": budget["serving_s"], "switching_s": budget["switching_s"],
         "outage_s": out_s,
         "switching_fraction": budget["switching_s"] / duration_s,
+        # unavailable: no service for whatever reason, outage and switching breaks together
+        "unavailability_fraction": (out_s + budget["switching_s"]) / duration_s,
         "slew_mean_deg": float(slew.mean()) if slew.size else 0.0,
         "slew_p95_deg": float(np.percentile(slew, 95)) if slew.size else 0.0,
         "slew_max_deg": float(slew.max()) if slew.size else 0.0,
@@ -157,11 +165,39 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         "none_in_view_fraction": float(np.sum(vis_dur[vis_n == 0]) / duration_s),
         **sinr_stats(sinr),
     }
-    for cause in ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure"):
+    for cause in ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure",
+                  "repointing"):
         sel = real["cause"] == cause
         row[f"outage_{cause.replace('-', '_')}_fraction"] = float(
             (real.loc[sel, "end_utc"] - real.loc[sel, "start_utc"]).sum() / duration_s)
     return row
+
+
+def mbb_apertures(links: pd.DataFrame, handovers: pd.DataFrame) -> int:
+    """Apertures a make-before-break terminal needs so that each satellite change finds one
+    already pointed: the aperture of a link that begins with a satellite change is busy from
+    ``repoint_s`` before the change (slewing) to the link's end; any other link's aperture
+    from its start to its end.  The answer is the most apertures busy at once (1 with no
+    satellite change).  Cost: a sort of the links."""
+    if len(links) == 0:
+        return 1
+    start = links["start_utc"].to_numpy(dtype=float).copy()
+    end = links["end_utc"].to_numpy(dtype=float)
+    if len(handovers) and "scope" in handovers.columns:
+        inter = handovers["scope"].astype(str).to_numpy() == "inter-satellite"
+        t_ho = handovers["time_utc"].to_numpy(dtype=float)[inter]
+        rep = handovers["repoint_s"].to_numpy(dtype=float)[inter]
+        # the link a change opens starts at the change plus its break: match by order
+        reason = links["start_reason"].astype(str).to_numpy()
+        sat = links["satellite"].astype(str).to_numpy()
+        opened = np.flatnonzero(reason == "handover")
+        new_sat = np.zeros(opened.size, bool)
+        prev = np.maximum(opened - 1, 0)
+        new_sat = sat[opened] != sat[prev]
+        targets = opened[new_sat]
+        k = min(targets.size, t_ho.size)
+        start[targets[:k]] = t_ho[:k] - rep[:k]
+    return max(1, iv.max_overlap(start, end))
 
 
 def sinr_stats(hist) -> dict[str, float]:

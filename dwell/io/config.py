@@ -323,6 +323,12 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
                                  base_dir, load_plugins=load_plugins)
     for i, params in enumerate(pols):
         _absolute(params, base_dir, source, f"policy[{i + 1}]")
+        policies.Policy.check_timing(params, float(scen["measurement_period_s"]), source,
+                                     f"policy[{i + 1}]", warn)
+    from ..policies.base import ping_pong_warning
+    msg = ping_pong_warning(pols, float(scen["measurement_period_s"]), source)
+    if msg:
+        warn(msg)
 
     out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
     out.layouts = [beams.BeamLayout.from_params(c["beams"]) for c in consts]

@@ -17,6 +17,11 @@ Execution model of one terminal under one policy (both kernels implement exactly
   failure, and the end of the scenario; at equal times in that order.
 - A link's policy decisions come strictly after the decision that opened it (a zero-length
   break must not let the next decision fall at the same instant).
+- A policy decision needs the serving link: one that falls while the serving satellite is out
+  of view (set, blocked, or none of its cells measured) cannot be commanded and is dropped;
+  the policy starts afresh from the first measurement instant with the satellite back in view
+  (the same for every rule).  Conditional handover, executed by the terminal itself with
+  candidates prepared earlier, is exempt (``acts_after_loss``).
 - Handover at t to cell c' of satellite n.  Within one satellite (n = s, a beam or cell
   change): no re-pointing; the link to c ends at t and the new one starts after a break of
   ``interruption_s`` (the radio handover's; a second aperture does not help within one
@@ -221,6 +226,13 @@ def monitoring(rows: Rows, cell: int, in_view_until_s: float, q_out: float, q_in
     low = measured & (sinr < q_out)
     weak = low | (~measured & (rows.t_s < in_view_until_s))
     return col, ~measured | low, measured & (sinr >= q_in), weak
+
+
+def serving_in_view(rows: Rows, r: int, sat: int, t_s: float) -> bool:
+    """Is the serving satellite in view (a window of it open, with a measured cell) at t_s, by
+    the cells of row r?  A handover command needs the serving link to reach the terminal."""
+    hit = (rows.sat[r] == sat) & (rows.start_s[r] <= t_s) & (t_s < rows.end_s[r])
+    return bool(hit.any())
 
 
 def suitable(rows: Rows, q_rxlevmin_dbm: float, q_out_db: float) -> np.ndarray:

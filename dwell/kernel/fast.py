@@ -17,7 +17,7 @@ import simpy
 from ..policies.base import Decision, Link, Policy
 from ..radio.measure import row_at_or_after
 from .common import (PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s, select_among,
-                     suitable)
+                     serving_in_view, suitable)
 from .rlm import RlmTiming, indications, weak_intervals
 
 FIRST_ROWS = 64
@@ -129,7 +129,7 @@ class FastRun(KernelRun):
             link = Link(sat, t_c, release, 1 if rows.t_s[0] <= ex.decided_at else 0, e0,
                         cell=cell)
             events = []
-            d = self.policy.scan(rows, link)
+            d = self._commandable(rows, link, sat)
             if d is not None:
                 events.append((d.time_s, PRIORITY["decision"], "decision", d))
             sw = cell_switch(rows, sat, cell, horizon)
@@ -171,6 +171,23 @@ class FastRun(KernelRun):
             return ("handover", t_new, None)
         yield self._wait_until(t_new)
         return ("handover", t_new, d.target)
+
+    def _commandable(self, rows, link: Link, sat: int) -> Decision | None:
+        """The policy's first decision that can be commanded: one falling while the serving
+        satellite is out of view is dropped and the policy starts again from the first row
+        with it back in view (see the execution model)."""
+        while True:
+            d = self.policy.scan(rows, link)
+            if d is None or self.policy.acts_after_loss:
+                return d
+            r = rows.row_at(d.time_s)
+            if serving_in_view(rows, r, sat, d.time_s):
+                return d
+            back = [q for q in range(r + 1, rows.n)
+                    if serving_in_view(rows, q, sat, float(rows.t_s[q]))][:1]
+            if not back:
+                return None
+            link.r_start = back[0]
 
     def _loss(self, rows, col, sat, e0, horizon, t_c) -> Decision | None:
         """First loss of the serving satellite at which another satellite is in view: the end

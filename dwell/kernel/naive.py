@@ -17,8 +17,8 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy, Rows
 from ..radio.measure import row_at_or_after
-from .common import (PRIORITY, Execution, KernelRun, select_among, suitable, switch_start,
-                     switch_target)
+from .common import (PRIORITY, Execution, KernelRun, select_among, serving_in_view, suitable,
+                     switch_start, switch_target)
 from .rlm import RlmTiming, indications, weak_intervals
 
 
@@ -115,6 +115,7 @@ class NaiveRun(KernelRun):
         weak_from = len(ex.rec.weak)
         win_s = max(self.rlm.evaluation_out_s, self.rlm.evaluation_in_s)
         t_sw = None                               # scheduled switch of an earth-fixed cell
+        paused = False                            # a decision was dropped: wait for the link
         prev_nocell = False                       # the previous row had no serving-satellite cell
         sinr_seen: list[tuple[float, float]] = []
         k = kc
@@ -175,7 +176,13 @@ class NaiveRun(KernelRun):
                 losses.append(t_k)
             prev_nocell = sat_col < 0 and t_k < losses_first
             events = []
-            d = self.policy.step(rows, r, link) if t_k > ex.decided_at else None
+            if paused and serving_in_view(rows, r, sat, t_k):
+                paused = False                    # back in view: the policy starts afresh
+                self.policy.start(link)
+            d = self.policy.step(rows, r, link) if (t_k > ex.decided_at and not paused) else None
+            if d is not None and not self.policy.acts_after_loss and \
+                    not serving_in_view(rows, rows.row_at(d.time_s), sat, d.time_s):
+                d, paused = None, True            # cannot be commanded: dropped
             if d is not None and d.time_s < t_next:
                 events.append((d.time_s, PRIORITY["decision"], "decision", d))
             if self.policy.loss_aware:

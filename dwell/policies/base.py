@@ -44,8 +44,9 @@ COMMON_KEYS: dict[str, Field] = {
     "name": Field((str,), None, (), "label of this policy in the outputs (default: the rule)"),
     "rule": text(doc="which policy: a built-in rule or 'file.py:Class'"),
     "min_dwell_s": number(0.0, ge(0), doc="minimum-dwell guard: no policy handover before this"),
-    "ping_pong_window_s": number(1.0, ge(0), doc="a return to the previous satellite within this "
-                                 "is a ping-pong (3GPP TR 36.839 uses 1 s, from memory)"),
+    "ping_pong_window_s": number(1.0, ge(0), doc="a return to the previous cell within this "
+                                 "is a ping-pong: the minimum time of stay of 3GPP TR 36.839 "
+                                 "(1 s, from memory)"),
     "n310": integer(1, ge(1), doc="consecutive out-of-sync indications that start T310"),
     "n311": integer(1, ge(1), doc="consecutive in-sync indications that stop T310"),
     "t310_s": number(1.0, between(0, 6), doc="radio link failure timer (TS 38.331: 0-6000 ms)"),
@@ -186,6 +187,7 @@ class Policy:
     rule: ClassVar[str] = ""
     KEYS: ClassVar[dict[str, Field]] = {}
     loss_aware: ClassVar[bool] = False
+    acts_after_loss: ClassVar[bool] = False   # may decide with the serving link lost (CHO)
     lookahead_rows: int = 0    # rows past a decision the vectorised scan needs to see
 
     def __init__(self, params: dict[str, Any], period_s: float):
@@ -199,6 +201,18 @@ class Policy:
         """Cross-key checks and warnings; raise InputError for bad values."""
         warn_if_not_in(params["t310_s"], T310_VALUES_MS, source, f"{where}.t310_s", warn)
         warn_if_not_in(params["t311_s"], T311_VALUES_MS, source, f"{where}.t311_s", warn)
+
+    @classmethod
+    def check_timing(cls, params: dict[str, Any], period_s: float, source: str, where: str,
+                     warn: Callable[[str], None]) -> None:
+        """Warning that needs the measurement period: a time-to-trigger shorter than it fires
+        on a single measurement (see :func:`ping_pong_warning` for the other)."""
+        ttt = params.get("time_to_trigger_s")
+        if isinstance(ttt, (int, float)) and 0 < ttt < period_s:
+            warn(f"warning: {source}: {where}.time_to_trigger_s = {ttt:g} s is shorter than "
+                 f"scenario.measurement_period_s = {period_s:g} s: the condition is checked on "
+                 "one measurement only")
+
         for key, allowed in (("n310", N310_VALUES), ("n311", N311_VALUES)):
             if params[key] not in allowed:
                 warn(f"warning: {source}: {where}.{key} = {params[key]} is not in the TS 38.331 "
@@ -303,3 +317,17 @@ def held_runs(cond: np.ndarray, win: np.ndarray, m: int) -> np.ndarray:
     next_stop = np.minimum.accumulate(pos[::-1], axis=0)[::-1]          # first stop at >= r
     after = np.concatenate([next_stop[1:], np.full((1,) + cond.shape[1:], n)], axis=0)
     return begins & (after - idx >= m + 1)
+
+
+def ping_pong_warning(tables: list[dict[str, Any]], period_s: float, source: str) -> str | None:
+    """One warning for the policies whose ping-pong window is not longer than the measurement
+    period: a return to the previous cell comes at least one period after the handover, so
+    such a window sees (almost) none."""
+    short = [f"policy[{i + 1}]" for i, p in enumerate(tables)
+             if p["ping_pong_window_s"] <= period_s]
+    if not short:
+        return None
+    return (f"warning: {source}: ping_pong_window_s is not longer than "
+            f"scenario.measurement_period_s = {period_s:g} s in {', '.join(short)}: a return "
+            "within one period cannot be seen, so ping-pong counts (almost) nothing; shorten "
+            "the period or lengthen the window")

@@ -39,6 +39,7 @@ _TARGET = {"elevation": lambda rows: rows.elevation_deg,
 @register
 class ConditionalHandover(TimeToTriggerRule):
     rule = "cho"
+    acts_after_loss = True       # the terminal executes a prepared candidate by itself
     KEYS = {
         "condition": text("d1", choices=CONDITIONS, doc="execution condition"),
         "t1_lead_s": number(30.0, ge(0), doc="T1 starts this long before the serving set"),
