@@ -358,8 +358,9 @@ def test_cho_d1_thresholds_and_time_to_trigger():
 
 def test_cho_t1_only_inside_its_window():
     # TS 38.331 5.5.4.16 CondEvent T1 (from memory): entering Mt > Thresh1, leaving
-    # Mt > Thresh1 + Duration.  Here Thresh1 = serving end - lead = 100.5 - 30 = 70.5 s and
-    # Duration 20 s, so the condition holds for 70.5 < t <= 90.5.
+    # Mt > Thresh1 + Duration, Mt the terminal's clock (no measurement involved, so it holds
+    # from Thresh1 itself, between measurement instants).  Here Thresh1 = serving stop - lead =
+    # 100.5 - 30 = 70.5 s and Duration 20 s, so the condition holds for 70.5 < t <= 90.5.
     dt = 1.0
     n = 120
     kw = dict(condition="t1", t1_lead_s=30.0, t1_duration_s=20.0, time_to_trigger_s=0.0)
@@ -372,7 +373,7 @@ def test_cho_t1_only_inside_its_window():
         return make_rows(dt, n, cells)
 
     always = rows_with([(0, n)])
-    assert_both(pol, always, serving_link(always, serving_end_s=100.5), 71.0, 1)
+    assert_both(pol, always, serving_link(always, serving_end_s=100.5), 70.5, 1)
     # a candidate in view only before and after the window: never
     outside = rows_with([(0, 70), (91, n)])
     assert_both(pol, outside, serving_link(outside, serving_end_s=100.5), None)
@@ -381,15 +382,16 @@ def test_cho_t1_only_inside_its_window():
     assert_both(pol, late, serving_link(late, serving_end_s=100.5), 90.0, 1)
 
 
-def test_cho_t1_entering_is_strict():
-    # TS 38.331 5.5.4.16 (from memory): T1-1 is Mt > Thresh1.  Thresh1 = 100 - 30 = 70 s falls
-    # on a measurement instant, which must not yet meet the condition: first trigger at 71 s.
+def test_cho_t1_enters_at_the_threshold_on_a_row():
+    # TS 38.331 5.5.4.16 (from memory): T1-1 is Mt > Thresh1, a clock condition: when
+    # Thresh1 = 100 - 30 = 70 s falls on a measurement instant the execution is at 70 s (the
+    # first instant after it, in the limit), not at the next measurement.
     dt = 1.0
     pol = make_policy("cho", dt, condition="t1", t1_lead_s=30.0, t1_duration_s=20.0,
                       time_to_trigger_s=0.0)
     rows = make_rows(dt, 100, [dict(sat=0, col=0, r0=0, r1=100, win=1, end_s=100.0),
                                dict(sat=1, col=1, r0=0, r1=100, win=2)])
-    assert_both(pol, rows, serving_link(rows, serving_end_s=100.0), 71.0, 1)
+    assert_both(pol, rows, serving_link(rows, serving_end_s=100.0), 70.0, 1)
 
 
 # ---- property: scan agrees with the step reference -----------------------------------------------

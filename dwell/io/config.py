@@ -78,6 +78,8 @@ SCENARIO_KEYS: dict[str, Field] = {
                                 "SGP4 sample spacing; default: from the shortest orbit period"),
     "chunk_s": number(21600.0, ge(600), doc="geometry is computed in chunks of this length"),
     "refine_s": number(0.01, gt(0), le(0.05), doc="rise/set times are refined to this"),
+    "release": Field((int,), 17, (), "3GPP release the mobility procedures follow (17: NTN "
+                     "conditional handover with T1/D1; 18 adds D2)", choices=(17, 18)),
 }
 
 TERMINAL_KEYS: dict[str, Field] = {
@@ -325,6 +327,11 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         _absolute(params, base_dir, source, f"policy[{i + 1}]")
         policies.Policy.check_timing(params, float(scen["measurement_period_s"]), source,
                                      f"policy[{i + 1}]", warn)
+    from ..policies.cho import ConditionalHandover
+    for i, params in enumerate(pols):
+        if params.get("rule") == "cho":
+            ConditionalHandover.check_release(params, int(scen["release"]), source,
+                                              f"policy[{i + 1}]", warn)
     from ..policies.base import ping_pong_warning
     msg = ping_pong_warning(pols, float(scen["measurement_period_s"]), source)
     if msg:

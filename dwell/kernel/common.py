@@ -228,6 +228,17 @@ def monitoring(rows: Rows, cell: int, in_view_until_s: float, q_out: float, q_in
     return col, ~measured | low, measured & (sinr >= q_in), weak
 
 
+def serving_stop(rows: Rows, r: int, cell: int, e0: float) -> float:
+    """When ephemeris says the serving cell stops serving the terminal: the end of its
+    satellite's floor pass or an earth-fixed cell's switch, by the cell at row r (the
+    window end ``e0`` when the cell is not measured there)."""
+    hit = np.flatnonzero((rows.cell[r] == cell) & (rows.sat[r] >= 0))
+    if hit.size == 0:
+        return e0
+    c = int(hit[0])
+    return float(min(rows.pass_end_s[r, c], rows.cell_end_s[r, c]))
+
+
 def serving_in_view(rows: Rows, r: int, sat: int, t_s: float) -> bool:
     """Is the serving satellite in view (a window of it open, with a measured cell) at t_s, by
     the cells of row r?  A handover command needs the serving link to reach the terminal."""

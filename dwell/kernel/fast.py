@@ -17,7 +17,7 @@ import simpy
 from ..policies.base import Decision, Link, Policy
 from ..radio.measure import row_at_or_after
 from .common import (PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s, select_among,
-                     serving_in_view, suitable)
+                     serving_in_view, serving_stop, suitable)
 from .rlm import RlmTiming, indications, weak_intervals
 
 FIRST_ROWS = 64
@@ -127,7 +127,7 @@ class FastRun(KernelRun):
             if s.min_dwell_s > 0 and oos.any():
                 release = min(release, float(t_i[int(np.argmax(oos))]))
             link = Link(sat, t_c, release, 1 if rows.t_s[0] <= ex.decided_at else 0, e0,
-                        cell=cell)
+                        cell=cell, serving_stop_s=serving_stop(rows, 0, cell, e0))
             events = []
             d = self._commandable(rows, link, sat)
             if d is not None:

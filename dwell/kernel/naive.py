@@ -17,8 +17,8 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy, Rows
 from ..radio.measure import row_at_or_after
-from .common import (PRIORITY, Execution, KernelRun, select_among, serving_in_view, suitable,
-                     switch_start, switch_target)
+from .common import (PRIORITY, Execution, KernelRun, select_among, serving_in_view,
+                     serving_stop, suitable, switch_start, switch_target)
 from .rlm import RlmTiming, indications, weak_intervals
 
 
@@ -108,7 +108,10 @@ class NaiveRun(KernelRun):
         e0 = self.stream.window_end_covering(sat, t_c)
         losses = [t_c if e0 is None else e0]      # pending ends of serving windows
         losses_first = losses[0]                  # the serving window covering the start
-        link = Link(sat, t_c, t_c + s.min_dwell_s, 0, losses[0], cell=cell)
+        first_rows, first_r = self._rows_at(kc) if kc < self.stream.K else (None, 0)
+        stop = serving_stop(first_rows, first_r, cell, losses[0]) if first_rows is not None \
+            else losses[0]
+        link = Link(sat, t_c, t_c + s.min_dwell_s, 0, losses[0], cell=cell, serving_stop_s=stop)
         self.policy.start(link)
         oc = ic = 0
         expiry = None

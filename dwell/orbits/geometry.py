@@ -143,6 +143,7 @@ class Geometry:
         self._win_ledger = [_Ledger(slots) for _ in range(n)]   # slots: only streams need them
         self._pass_ledger = [_Ledger(False) for _ in range(n)]
         self.index = [WindowIndex() for _ in range(n)]
+        self.pass_index = [WindowIndex() for _ in range(n)]   # floor passes (no obstruction)
         self._done = -1
         self.tables: list[list[SiteWindows]] = [[] for _ in range(n)]  # every chunk, kept
         self.evaluations = 0
@@ -168,6 +169,7 @@ class Geometry:
                              np.zeros(0, np.int64), slot, passes, pid)
             self.tables[k].append(sw)
             self.index[k].update(wid, windows, self.duration_s)
+            self.pass_index[k].update(pid, passes, self.duration_s)
         self._done = c
 
     def computed_until_s(self) -> float:
@@ -177,6 +179,12 @@ class Geometry:
         """Compute further chunks until the windows ``ids`` have known ends."""
         while self._done < self.n_chunks - 1 and ids.size and \
                 not self.index[site_index].closed[ids].all():
+            self._compute(self._done + 1)
+
+    def ensure_passes_closed(self, site_index: int, ids: np.ndarray) -> None:
+        """Compute further chunks until the floor passes ``ids`` have known ends."""
+        while self._done < self.n_chunks - 1 and ids.size and \
+                not self.pass_index[site_index].closed[ids].all():
             self._compute(self._done + 1)
 
     def run_all(self, progress: Callable[[int, int], None] | None = None) -> None:

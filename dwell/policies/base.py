@@ -94,6 +94,8 @@ class Rows:
     rsrp_raw_dbm: np.ndarray | None = None  # (R, W) RSRP before the layer-3 filter
     ref_km: np.ndarray | None = None        # (R, W) distance to the cell's reference location
     cell_end_s: np.ndarray | None = None    # (R, W) end of the cell's service by its satellite
+    pass_end_s: np.ndarray | None = None    # (R, W) end of the satellite's floor pass (ephemeris)
+    ref0_km: np.ndarray | None = None       # (R, W) reference distance when first measured
     _cols: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self):
@@ -110,6 +112,10 @@ class Rows:
             self.ref_km = self.nadir_km
         if self.cell_end_s is None:
             self.cell_end_s = self.end_s
+        if self.pass_end_s is None:
+            self.pass_end_s = self.end_s
+        if self.ref0_km is None:
+            self.ref0_km = self.ref_km
 
     @property
     def n(self) -> int:
@@ -152,7 +158,7 @@ class Rows:
 
 _ROW_ARRAYS = ("sat", "win", "rsrp_dbm", "snr_db", "elevation_deg", "azimuth_deg", "range_km",
                "nadir_km", "start_s", "end_s", "range_rate_km_s", "cell", "beam", "sinr_db",
-               "rsrp_raw_dbm", "ref_km", "cell_end_s")
+               "rsrp_raw_dbm", "ref_km", "cell_end_s", "pass_end_s", "ref0_km")
 
 
 @dataclass
@@ -166,10 +172,13 @@ class Link:
     serving_end_s: float = math.inf  # end of the serving window open at the link's start
     state: dict[str, Any] = field(default_factory=dict)  # per-link scratch of the naive path
     cell: int = -1             # the serving cell (-1: beam 0 of ``sat``)
+    serving_stop_s: float = math.inf  # when ephemeris says the serving cell stops serving here
 
     def __post_init__(self):
         if self.cell < 0:
             self.cell = self.sat * BEAM_STRIDE
+        if not math.isfinite(self.serving_stop_s):
+            self.serving_stop_s = self.serving_end_s
 
 
 @dataclass

@@ -42,8 +42,8 @@ _MEASURE_BEAM = noise.stream_id("measurement-beams")
 _MEASURE_GROUND = noise.stream_id("measurement-ground-cells")
 _NLOS = noise.stream_id("nlos-rows")
 FIELDS = ("sat", "win", "cell", "beam", "rsrp_dbm", "rsrp_raw_dbm", "snr_db", "sinr_db",
-          "elevation_deg", "azimuth_deg", "range_km", "nadir_km", "ref_km", "start_s", "end_s",
-          "cell_end_s", "range_rate_km_s")
+          "elevation_deg", "azimuth_deg", "range_km", "nadir_km", "ref_km", "ref0_km", "start_s",
+          "end_s", "cell_end_s", "pass_end_s", "range_rate_km_s")
 INT_FIELDS = ("sat", "win", "cell", "beam")
 
 
@@ -155,9 +155,11 @@ class MeasurementStream:
         self._readers: dict[int, int] = {}
         self._carry_filter: dict[int, float] = {}
         self._carry_l1: dict[int, tuple[int, float, float]] = {}   # run -> (j, filter, raw)
+        self._carry_ref0: dict[int, float] = {}                     # run -> first ref distance
         self._carry_shadow: dict[int, float] = {}
         self._carry_nlos: dict[int, float] = {}
         self._runs = _RunLedger()
+        self._pass_of: dict[int, int] = {}     # window id -> floor pass id
         self.samples = 0
         self.uncovered: list[tuple[float, float]] = []   # satellites in view, no cell measured
 
@@ -183,7 +185,7 @@ class MeasurementStream:
                     certain_until_s=math.inf if final else float(t[-1]), final=final,
                     range_rate_km_s=v["range_rate_km_s"], cell=v["cell"], beam=v["beam"],
                     sinr_db=v["sinr_db"], rsrp_raw_dbm=v["rsrp_raw_dbm"], ref_km=v["ref_km"],
-                    cell_end_s=v["cell_end_s"])
+                    cell_end_s=v["cell_end_s"], pass_end_s=v["pass_end_s"], ref0_km=v["ref0_km"])
 
     def release(self, k: int, reader: object = None) -> None:
         """``reader`` no longer needs rows before k; rows every reader has passed may go."""
@@ -247,7 +249,7 @@ class MeasurementStream:
         c_a = geo.sky.chunk_index(t_a)
         c_b = geo.sky.chunk_index(t_b)
         geo.chunk_windows(c_b)
-        sat, start, end, wid = [], [], [], []
+        sat, start, end, wid, pid = [], [], [], [], []
         for c in range(c_a, c_b + 1):
             sw = geo.tables[self.k_site][c]
             w = sw.windows
@@ -256,9 +258,12 @@ class MeasurementStream:
             start.append(w.start_s[m])
             end.append(w.end_s[m])
             wid.append(sw.wid[m])
-        cat = [np.concatenate(x) for x in (sat, start, end, wid)]
+            pid.append(sw.pass_gid[m])
+        cat = [np.concatenate(x) for x in (sat, start, end, wid, pid)]
         geo.ensure_closed(self.k_site, np.unique(cat[3]))
-        return cat
+        geo.ensure_passes_closed(self.k_site, np.unique(cat[4]))
+        self._pass_of.update(zip(cat[3].tolist(), cat[4].tolist()))
+        return cat[:4]
 
     def _build(self, b: int) -> None:
         k_a = b * self.B
@@ -296,7 +301,7 @@ class MeasurementStream:
             for w in [w for w in store if ended[w] <= k_b * dt]:
                 del store[w]
         live = {rid for rid, _ in self._runs.open.values()}
-        for store in (self._carry_filter, self._carry_l1):
+        for store in (self._carry_filter, self._carry_l1, self._carry_ref0):
             for rid in [r for r in store if r not in live]:
                 del store[rid]
 
@@ -464,11 +469,22 @@ class MeasurementStream:
         blk["end_s"][r, c] = idx.end_s[vals["pair_win"]]
         # a cell's service ends with its satellite's window, or earlier at a cell switch
         blk["cell_end_s"][r, c] = np.fmin(idx.end_s[vals["pair_win"]], vals["until_s"])
+        # the floor pass's end: when ephemeris says the satellite leaves (no obstruction)
+        passes = np.array([self._pass_of[w] for w in vals["pair_win"].tolist()], dtype=np.int64)
+        blk["pass_end_s"][r, c] = self.geo.pass_index[self.k_site].end_s[passes] \
+            if passes.size else np.zeros(0)
         blk["rsrp_dbm"][r, c] = filt
         blk["rsrp_raw_dbm"][r, c] = raw
         for f in ("snr_db", "sinr_db", "elevation_deg", "azimuth_deg", "range_km", "nadir_km",
                   "ref_km", "range_rate_km_s"):
             blk[f][r, c] = vals[f]
+        # the reference location's distance when the cell was first measured (a reference
+        # location fixed at configuration, as Rel-17 event D1 has it)
+        first = np.flatnonzero(new_run)
+        ref0 = vals["ref_km"][first].copy()
+        for i, rid in enumerate(ids.tolist()):
+            ref0[i] = self._carry_ref0.setdefault(rid, float(ref0[i]))
+        blk["ref0_km"][r, c] = ref0[run_of]
         return blk
 
     def _l1_noise(self, runs, new_run, ids, run_of, k) -> tuple[np.ndarray, np.ndarray]:
