@@ -18,7 +18,9 @@ An area is a region and a way to fill it with terminals (the key names are a con
   cannot be every point's path) as the template of each point: elevation floor, apertures,
   steering, horizon mask, ``[area.canyon]``, ``[area.los]``, ``[area.drive]``, ...  Random parts
   of the template (canyons, line of sight) draw per generated terminal, as for listed terminals:
-  their seeds derive from the terminal's index in the scenario.
+  their seeds derive from the terminal's index in the scenario and the scenario seed, or, when
+  the template's part sets a seed of its own, from that seed (points still differ from each
+  other, and stay the same when the scenario seed changes).
 
 Generated terminals are named ``<area name>-<index>`` (index from 1, zero-padded to at least
 three digits), follow the listed ``[[terminal]]`` tables in the scenario (areas in file order,
@@ -273,7 +275,8 @@ def check_region(params: dict[str, Any], source: str, where: str) -> Region:
                          f"vertices {k} and {(k + 1) % len(v)} are the same point")
     if v[:, 1].max() - v[:, 1].min() >= 360.0:
         raise InputError(source, key, poly, "the polygon spans 360 deg of longitude or more")
-    if polygon_area_km2(v) <= 0.0:
+    d = v - v[0]
+    if np.all(d[:, 0] * d[1, 1] - d[:, 1] * d[1, 0] == 0):
         raise InputError(source, key, poly, "encloses no area (its vertices lie on one line)")
     crossing = crossing_edges(v)
     if crossing is not None:
@@ -281,6 +284,8 @@ def check_region(params: dict[str, Any], source: str, where: str) -> Region:
         raise InputError(source, key, poly,
                          f"crosses itself: edges {a} and {b} meet (edge k joins vertices k and "
                          "k+1; edges may meet only at the vertex two neighbours share)")
+    if polygon_area_km2(v) <= 0.0:
+        raise InputError(source, key, poly, "encloses no area")
     return Region(float(v[:, 0].min()), float(v[:, 0].max()), float(v[:, 1].min()),
                   float(v[:, 1].max()), v)
 
@@ -527,6 +532,11 @@ def expand(tables: list[dict], terminal_keys: dict[str, Field], scenario_seed: i
                     term[k] = None
                 else:
                     term[k] = copy.deepcopy(template[k])
+            canyon = term.get("canyon")
+            if canyon is not None and canyon.get("seed") is not None:
+                # a canyon's own seed fixes its buildings; each point derives its own from it
+                canyon["seed"] = seed_for(int(canyon["seed"]), "canyon",
+                                          first_index + len(terminals))
             terminals.append(term)
         total = first_index + len(terminals)
         checked.append(params)
