@@ -468,3 +468,25 @@ def test_scheduler_without_dask_executor(tmp_path):
     assert result.exit_code == 2 and len(result.stderr.splitlines()) == 1
     assert "--scheduler = 'tcp://127.0.0.1:8786'" in result.stderr
     assert not (tmp_path / "out").exists()
+
+
+def test_readme_area_example_loads():
+    # the README's [[area]] example (read out of the README itself) is a valid table, and so
+    # is its commented polygon variant; a 100 km grid over the 10 x 20 deg box holds about
+    # area / spacing^2 points (the README's rule), within the boundary bound used above
+    import re
+    import tomllib
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = readme.split("## Areas: populations of terminals", 1)[1].split("\n## ", 1)[0]
+    text = re.findall(r"```toml\n(.*?)```", section, flags=re.S)[0]
+    area = tomllib.loads(text)["area"][0]
+    scen = _scenario(_raw([area]))
+    region = Region(40, 50, 0, 20)
+    rows = np.unique(scen.population.lat_deg).size
+    assert abs(len(scen.terminals) - region.area_km2() / 100.0 ** 2) <= rows + 2300 / 100.0
+    assert all(t["apertures"] == 2 and t["min_elevation_deg"] == 25 for t in scen.terminals)
+    poly = re.search(r"# (polygon = \[\[.*\]\])", text).group(1)
+    variant = {k: v for k, v in area.items() if not k.startswith(("lat_", "lon_"))}
+    variant["polygon"] = tomllib.loads(poly)["polygon"]
+    assert len(_scenario(_raw([variant])).terminals) > 50
