@@ -44,40 +44,41 @@ DIRECTIONS = ("into", "out_of", "within")
 
 LOAD_COLUMNS = ("policy", "level", "element", "second", "time_utc", "into", "out_of", "within",
                 "into_terminals", "out_of_terminals", "within_terminals", "total")
+PEAK_COLUMNS = ("policy", "level", "element", "handovers_into", "handovers_out_of",
+                "handovers_within", "terminals_into", "terminals_out_of", "terminals_within",
+                "peak_per_s", "peak_time_utc", "peak_into_per_s", "peak_out_of_per_s",
+                "busy_seconds", "largest_burst_terminals", "mean_per_s")
+BURST_COLUMNS = ("policy", "level", "direction", "burst_terminals", "bursts", "handovers",
+                 "weight")
 
 
-def _events(handovers: pd.DataFrame, weight: np.ndarray, policies: list[str]
-            ) -> tuple[pd.DataFrame, np.ndarray]:
-    """Events (policy code, level, element code, second, direction, weight) and the sorted
-    element names the codes index."""
-    n = len(handovers)
-    pol = pd.Categorical(handovers["policy"].astype(str), categories=policies).codes
-    pol = pol.astype(np.int64)
-    sec = np.floor(handovers["time_utc"].to_numpy(dtype=float)).astype(np.int64)
-    inter = (handovers["scope"].astype(str).to_numpy() == "inter-satellite") if n else \
-        np.zeros(0, bool)
-    fs = handovers["from_satellite"].astype(str).to_numpy(dtype=object)
-    ts = handovers["to_satellite"].astype(str).to_numpy(dtype=object)
-    fc = handovers["from_cell"].astype(str).to_numpy(dtype=object)
-    tc = handovers["to_cell"].astype(str).to_numpy(dtype=object)
-    names = np.unique(np.concatenate([fs, ts, fc, tc])) if n else np.zeros(0, dtype=object)
+def _values(column) -> np.ndarray:
+    return np.asarray(pd.Series(column).astype(object).to_numpy(), dtype=object)
 
-    def code(x: np.ndarray) -> np.ndarray:
-        return np.searchsorted(names, x).astype(np.int64)
-    parts = [  # (rows, level, element, direction)
-        (inter, 0, code(ts), 0), (inter, 0, code(fs), 1), (~inter, 0, code(ts), 2),
-        (np.ones(n, bool), 1, code(tc), 0), (np.ones(n, bool), 1, code(fc), 1),
-    ]
-    cols: dict[str, list[np.ndarray]] = {k: [] for k in ("p", "l", "e", "s", "d", "w")}
-    for rows, level, element, direction in parts:
-        k = int(rows.sum())
-        cols["p"].append(pol[rows])
-        cols["l"].append(np.full(k, level, np.int64))
-        cols["e"].append(element[rows])
-        cols["s"].append(sec[rows])
-        cols["d"].append(np.full(k, direction, np.int64))
-        cols["w"].append(weight[rows])
-    return pd.DataFrame({k: np.concatenate(v) for k, v in cols.items()}), names
+
+def _sorted_codes(columns: list) -> tuple[list[np.ndarray], np.ndarray]:
+    """Integer codes of the values of several text columns into their sorted common names:
+    one hash pass over the values, a sort of the distinct names only."""
+    values = [_values(c) for c in columns]
+    codes, uniq = pd.factorize(np.concatenate(values) if values else np.zeros(0, object))
+    uniq = np.asarray(uniq, dtype=object)
+    order = np.argsort(uniq.astype(str), kind="stable")
+    rank = np.empty(order.size, np.int64)
+    rank[order] = np.arange(order.size)
+    codes = rank[codes] if codes.size else codes.astype(np.int64)
+    bounds = np.cumsum([0] + [v.size for v in values])
+    return [codes[a:b] for a, b in zip(bounds[:-1], bounds[1:])], uniq[order]
+
+
+def _lookup(column, table: dict, what: str) -> np.ndarray:
+    """``table[value]`` for every value of a column (one look-up per distinct value)."""
+    codes, uniq = pd.factorize(_values(column))
+    mapped = np.array([table[str(u)] for u in uniq])
+    return mapped[codes] if codes.size else mapped[:0]
+
+
+def _categories(codes: np.ndarray, names) -> pd.Categorical:
+    return pd.Categorical.from_codes(codes, categories=pd.Index(list(names), dtype=object))
 
 
 def load_tables(handovers: pd.DataFrame, terminal_weight: dict[str, float], policies: list[str],
@@ -85,111 +86,108 @@ def load_tables(handovers: pd.DataFrame, terminal_weight: dict[str, float], poli
     """``load``, ``load_peaks`` and ``load_bursts`` (see the module docstring) of a run's
     handovers table (``time_utc`` in scenario seconds, as built before writing);
     ``terminal_weight`` maps every terminal to its weight, ``policies`` gives the policy
-    order.  Rows are sorted by policy (in that order), level, element name and second, so
-    the tables depend on the handovers only, not on how the run was split."""
-    names_t = list(terminal_weight)
-    w_t = np.array([terminal_weight[t] for t in names_t], dtype=float)
-    codes = pd.Categorical(handovers["terminal"].astype(str), categories=names_t).codes
-    weight = w_t[codes] if len(handovers) else np.zeros(0)
-    ev, names = _events(handovers, weight, policies)
-    ev["one"] = 1
-    keys = ["p", "l", "e", "s"]
-    wide = ev.pivot_table(index=keys, columns="d", values=["w", "one"], aggfunc="sum",
-                          fill_value=0, sort=True) if len(ev) else None
-    out_cols: dict[str, np.ndarray] = {}
-    if wide is not None:
-        idx = wide.index.to_frame(index=False)
-        for j, d in enumerate(DIRECTIONS):
-            out_cols[d] = (wide[("w", j)].to_numpy(dtype=float) if ("w", j) in wide.columns
-                           else np.zeros(len(wide)))
-            out_cols[f"{d}_terminals"] = (wide[("one", j)].to_numpy(dtype=np.int64)
-                                          if ("one", j) in wide.columns
-                                          else np.zeros(len(wide), np.int64))
-        p, lv, e, s = (idx[k].to_numpy(dtype=np.int64) for k in keys)
-    else:
-        p = lv = e = s = np.zeros(0, np.int64)
-        for d in DIRECTIONS:
-            out_cols[d] = np.zeros(0)
-            out_cols[f"{d}_terminals"] = np.zeros(0, np.int64)
+    order.  Rows are sorted by policy (in that order), level, element name and second, so the
+    tables depend on the handovers only, not on how the run was split.  Cost: one hash pass
+    over the names and one sort of the events' integer keys, O(handovers log handovers)."""
+    n = len(handovers)
+    weight = _lookup(handovers["terminal"], terminal_weight, "terminal").astype(float)
+    pol = _lookup(handovers["policy"], {p: i for i, p in enumerate(policies)}, "policy")
+    pol = pol.astype(np.int64)
+    sec = np.floor(handovers["time_utc"].to_numpy(dtype=float)).astype(np.int64)
+    inter = _values(handovers["scope"]) == "inter-satellite"
+    (fs, ts, fc, tc), names = _sorted_codes([handovers[c] for c in (
+        "from_satellite", "to_satellite", "from_cell", "to_cell")])
+    every = np.ones(n, bool)
+    parts = [  # (rows, level, element, direction): see the module docstring
+        (inter, 0, ts, 0), (inter, 0, fs, 1), (~inter, 0, ts, 2),
+        (every, 1, tc, 0), (every, 1, fc, 1),
+    ]
+    n_sec = int(sec.max()) + 1 if n else 1
+    n_el = max(1, names.size)
+    if float(max(1, len(policies))) * 2 * n_el * n_sec >= 2.0 ** 62:
+        raise ValueError("too many distinct (policy, element, second) keys for the load table")
+    # one integer per (policy, level, element, second), ordered like the tuple
+    key = np.concatenate([((pol[r] * 2 + lv) * n_el + el[r]) * n_sec + sec[r]
+                          for r, lv, el, _ in parts])
+    direction = np.concatenate([np.full(int(r.sum()), d, np.int8) for r, _, _, d in parts])
+    w = np.concatenate([weight[r] for r, _, _, _ in parts])
+    uniq, inv = np.unique(key, return_inverse=True)
+    inv = inv.reshape(-1)
+    per: dict[str, np.ndarray] = {}
+    for j, name in enumerate(DIRECTIONS):
+        m = direction == j
+        per[name] = np.bincount(inv[m], weights=w[m], minlength=uniq.size)
+        per[f"{name}_terminals"] = np.bincount(inv[m], minlength=uniq.size).astype(np.int64)
+    second = uniq % n_sec
+    element_key = uniq // n_sec                        # (policy, level, element)
+    e = element_key % n_el
+    lv = (element_key // n_el) % 2
+    p = element_key // (2 * n_el)
+    total = per["into"] + per["out_of"] + per["within"]
     load = pd.DataFrame({
-        "policy": np.asarray(policies, dtype=object)[p] if p.size else np.zeros(0, object),
-        "level": np.asarray(LEVELS, dtype=object)[lv] if lv.size else np.zeros(0, object),
-        "element": names[e] if e.size else np.zeros(0, object),
-        "second": s, "time_utc": s.astype(float),
-        **{k: out_cols[k] for k in ("into", "out_of", "within", "into_terminals",
-                                    "out_of_terminals", "within_terminals")},
-    })
-    load["total"] = load["into"] + load["out_of"] + load["within"]
+        "policy": _categories(p, policies), "level": _categories(lv, LEVELS),
+        "element": _categories(e, names), "second": second.astype(np.int64),
+        "time_utc": second.astype(float),
+        **{k: per[k] for k in ("into", "out_of", "within", "into_terminals",
+                               "out_of_terminals", "within_terminals")},
+        "total": total})
     # rows are sorted by (policy, level, element, second): an element's rows are contiguous
-    new = np.ones(p.size, bool)
-    new[1:] = (p[1:] != p[:-1]) | (lv[1:] != lv[:-1]) | (e[1:] != e[:-1])
-    return {"load": load, "load_peaks": _peaks(load, np.flatnonzero(new), duration_s),
-            "load_bursts": _bursts(load, policies)}
+    new = np.ones(uniq.size, bool)
+    new[1:] = element_key[1:] != element_key[:-1]
+    start = np.flatnonzero(new)
+    return {"load": load, "load_peaks": _peaks(load, per, total, start, duration_s),
+            "load_bursts": _bursts(p, lv, per, policies)}
 
 
-def _peaks(load: pd.DataFrame, start: np.ndarray, duration_s: float) -> pd.DataFrame:
+def _peaks(load: pd.DataFrame, per: dict[str, np.ndarray], total: np.ndarray,
+           start: np.ndarray, duration_s: float) -> pd.DataFrame:
     """One row per element; ``start`` holds the first row of each element's run of rows."""
-    cols = ["policy", "level", "element"]
     if not len(load):
-        return pd.DataFrame({c: np.zeros(0, object) for c in cols} | {
-            k: np.zeros(0) for k in ("handovers_into", "handovers_out_of", "handovers_within")} | {
-            k: np.zeros(0, np.int64) for k in ("terminals_into", "terminals_out_of",
-                                               "terminals_within")} | {
-            "peak_per_s": np.zeros(0), "peak_time_utc": np.zeros(0), "peak_into_per_s": np.zeros(0),
-            "peak_out_of_per_s": np.zeros(0), "busy_seconds": np.zeros(0, np.int64),
-            "largest_burst_terminals": np.zeros(0, np.int64), "mean_per_s": np.zeros(0)})
+        return pd.DataFrame({c: load[c].iloc[:0] for c in ("policy", "level", "element")} | {
+            c: np.zeros(0, np.int64 if c.startswith(("terminals", "busy", "largest")) else float)
+            for c in PEAK_COLUMNS[3:]})
     end = np.append(start[1:], len(load))
-    total = load["total"].to_numpy(dtype=float)
-    burst = np.maximum.reduce([load[f"{d}_terminals"].to_numpy() for d in DIRECTIONS])
-
-    def red(col: str, fn=np.add) -> np.ndarray:
-        return fn.reduceat(load[col].to_numpy(), start)
-    peak = np.maximum.reduceat(total, start)
-    # the first second of each group at which its peak occurs
     rows = np.arange(len(load))
+    peak = np.maximum.reduceat(total, start)
     at_peak = total == np.repeat(peak, end - start)
     first = np.minimum.reduceat(np.where(at_peak, rows, len(load)), start)
-    out = load.iloc[start][cols].reset_index(drop=True)
-    out["handovers_into"] = red("into")
-    out["handovers_out_of"] = red("out_of")
-    out["handovers_within"] = red("within")
-    out["terminals_into"] = red("into_terminals")
-    out["terminals_out_of"] = red("out_of_terminals")
-    out["terminals_within"] = red("within_terminals")
+    burst = np.maximum.reduce([per[f"{d}_terminals"] for d in DIRECTIONS])
+    out = load.iloc[start][["policy", "level", "element"]].reset_index(drop=True)
+    for d in DIRECTIONS:
+        out[f"handovers_{d}"] = np.add.reduceat(per[d], start)
+    for d in DIRECTIONS:
+        out[f"terminals_{d}"] = np.add.reduceat(per[f"{d}_terminals"], start)
     out["peak_per_s"] = peak
     out["peak_time_utc"] = load["second"].to_numpy(dtype=float)[first]
-    out["peak_into_per_s"] = red("into", np.maximum)
-    out["peak_out_of_per_s"] = red("out_of", np.maximum)
+    out["peak_into_per_s"] = np.maximum.reduceat(per["into"], start)
+    out["peak_out_of_per_s"] = np.maximum.reduceat(per["out_of"], start)
     out["busy_seconds"] = (end - start).astype(np.int64)
     out["largest_burst_terminals"] = np.maximum.reduceat(burst, start).astype(np.int64)
     out["mean_per_s"] = np.add.reduceat(total, start) / float(duration_s)
     return out
 
 
-def _bursts(load: pd.DataFrame, policies: list[str]) -> pd.DataFrame:
-    rows = []
-    for d in DIRECTIONS:
-        k = load[f"{d}_terminals"].to_numpy()
-        sel = k > 0
-        rows.append(pd.DataFrame({"policy": load["policy"].to_numpy()[sel],
-                                  "level": load["level"].to_numpy()[sel],
-                                  "direction": d, "burst_terminals": k[sel].astype(np.int64),
-                                  "weight": load[d].to_numpy(dtype=float)[sel]}))
-    ev = pd.concat(rows, ignore_index=True)
-    if not len(ev):
-        return pd.DataFrame({"policy": np.zeros(0, object), "level": np.zeros(0, object),
-                             "direction": np.zeros(0, object),
-                             "burst_terminals": np.zeros(0, np.int64),
-                             "bursts": np.zeros(0, np.int64), "handovers": np.zeros(0, np.int64),
-                             "weight": np.zeros(0)})
-    ev["policy"] = pd.Categorical(ev["policy"], categories=policies)
-    ev["level"] = pd.Categorical(ev["level"], categories=list(LEVELS))
-    ev["direction"] = pd.Categorical(ev["direction"], categories=list(DIRECTIONS))
-    g = ev.groupby(["policy", "level", "direction", "burst_terminals"], observed=True, sort=True)
-    out = g.agg(bursts=("weight", "size"), weight=("weight", "sum")).reset_index()
-    out["handovers"] = (out["bursts"] * out["burst_terminals"]).astype(np.int64)
-    out["bursts"] = out["bursts"].astype(np.int64)
-    for c in ("policy", "level", "direction"):
-        out[c] = out[c].astype(str).astype(object)
-    return out[["policy", "level", "direction", "burst_terminals", "bursts", "handovers",
-                "weight"]]
+def _bursts(p: np.ndarray, lv: np.ndarray, per: dict[str, np.ndarray], policies: list[str]
+            ) -> pd.DataFrame:
+    """Burst-size distribution from the per-second rows' policy and level codes."""
+    keys, ws = [], []
+    top = max(1, int(max((per[f"{d}_terminals"].max(initial=0) for d in DIRECTIONS))) + 1)
+    for j, d in enumerate(DIRECTIONS):
+        k = per[f"{d}_terminals"]
+        m = k > 0
+        keys.append(((p[m] * 2 + lv[m]) * len(DIRECTIONS) + j) * top + k[m])
+        ws.append(per[d][m])
+    key, w = np.concatenate(keys), np.concatenate(ws)
+    uniq, inv = np.unique(key, return_inverse=True)
+    inv = inv.reshape(-1)
+    size = uniq % top
+    rest = uniq // top
+    d = rest % len(DIRECTIONS)
+    lvl = (rest // len(DIRECTIONS)) % 2
+    pol = rest // (2 * len(DIRECTIONS))
+    bursts = np.bincount(inv, minlength=uniq.size).astype(np.int64)
+    return pd.DataFrame({
+        "policy": _categories(pol, policies), "level": _categories(lvl, LEVELS),
+        "direction": _categories(d, DIRECTIONS), "burst_terminals": size.astype(np.int64),
+        "bursts": bursts, "handovers": bursts * size.astype(np.int64),
+        "weight": np.bincount(inv, weights=w, minlength=uniq.size)})
