@@ -39,8 +39,7 @@ from matplotlib.path import Path as MplPath
 from scipy import stats
 
 from dwell.cli import main
-from dwell.io.areas import (MAX_TERMINALS, Region, grid_points, grid_rows, polygon_area_km2,
-                            random_points)
+from dwell.io.areas import MAX_TERMINALS, Region, grid_points, polygon_area_km2, random_points
 from dwell.io.config import load_scenario, scenario_from_dict
 from dwell.orbits.frames import MEAN_EARTH_RADIUS_KM
 
@@ -135,7 +134,8 @@ def test_grid_count_is_area_over_spacing_squared():
     # an equal-area grid holds one point per s^2 of the sphere; per row the count is
     # floor(width / s) + 1 and the rows cover the latitude extent to within half a spacing at
     # either edge, so |N - A / s^2| <= rows + widest row / s (lattice-point boundary bound)
-    for region, s in [(Region(0.0, 60.0, 0.0, 40.0), 100.0), (Region(-45.0, 45.0, 90.0, 200.0), 333.0)]:
+    for region, s in [(Region(0.0, 60.0, 0.0, 40.0), 100.0),
+                      (Region(-45.0, 45.0, 90.0, 200.0), 333.0)]:
         lat, _ = grid_points(region, s)
         rows = np.unique(lat).size
         widest = R_KM * math.radians(region.lon_max_deg - region.lon_min_deg)

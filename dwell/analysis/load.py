@@ -70,7 +70,7 @@ def _sorted_codes(columns: list) -> tuple[list[np.ndarray], np.ndarray]:
     return [codes[a:b] for a, b in zip(bounds[:-1], bounds[1:])], uniq[order]
 
 
-def _lookup(column, table: dict, what: str) -> np.ndarray:
+def _lookup(column, table: dict) -> np.ndarray:
     """``table[value]`` for every value of a column (one look-up per distinct value)."""
     codes, uniq = pd.factorize(_values(column))
     mapped = np.array([table[str(u)] for u in uniq])
@@ -90,8 +90,8 @@ def load_tables(handovers: pd.DataFrame, terminal_weight: dict[str, float], poli
     tables depend on the handovers only, not on how the run was split.  Cost: one hash pass
     over the names and one sort of the events' integer keys, O(handovers log handovers)."""
     n = len(handovers)
-    weight = _lookup(handovers["terminal"], terminal_weight, "terminal").astype(float)
-    pol = _lookup(handovers["policy"], {p: i for i, p in enumerate(policies)}, "policy")
+    weight = _lookup(handovers["terminal"], terminal_weight).astype(float)
+    pol = _lookup(handovers["policy"], {p: i for i, p in enumerate(policies)})
     pol = pol.astype(np.int64)
     sec = np.floor(handovers["time_utc"].to_numpy(dtype=float)).astype(np.int64)
     inter = _values(handovers["scope"]) == "inter-satellite"

@@ -48,8 +48,7 @@ import numpy as np
 
 from ..orbits.frames import MEAN_EARTH_RADIUS_KM
 from .errors import InputError
-from .schema import REQUIRED, Field, between, check_table, follow_scenario, ge, gt, integer, \
-    label, number, seed
+from .schema import REQUIRED, Field, between, check_table, follow_scenario, ge, gt, label, seed
 
 MAX_TERMINALS = 50_000          # per scenario, listed and generated
 MAX_POLYGON_VERTICES = 5_000
