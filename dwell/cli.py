@@ -111,7 +111,15 @@ def passes(config: Path, out: Path, force: bool) -> None:
               help="Event kernel, or the per-measurement reference (slow; for checking).")
 @click.option("--check/--no-check", default=False, help="Verify accounting invariants.")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1),
-              help="Processes to split the terminals over (results do not depend on it).")
+              help="Processes to split the terminals over (results do not depend on it); "
+                   "with --executor dask and no --scheduler, the local cluster's workers.")
+@click.option("--executor", type=click.Choice(["local", "dask"]), default="local",
+              show_default=True,
+              help="local: forked processes; dask: terminal groups on a dask.distributed "
+                   "cluster (same tables).")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Address of a running dask scheduler (e.g. tcp://HOST:8786); without it "
+                   "--executor dask starts a local cluster.")
 @click.option("--trace", "trace", default=None, metavar="TERMINAL",
               help="Also write trace.parquet: the terminal's measurements of its serving cell "
                    "and strongest neighbours at every instant, per policy.")
@@ -119,13 +127,22 @@ def passes(config: Path, out: Path, force: bool) -> None:
               help="Replace OUTDIR if it holds an earlier run (never a folder of other files).")
 @FORCE
 @guarded
-def run(config: Path, out: Path, kernel: str, check: bool, workers: int,
-        trace: str | None, replace: bool, force: bool) -> None:
+def run(config: Path, out: Path, kernel: str, check: bool, workers: int, executor: str,
+        scheduler: str | None, trace: str | None, replace: bool, force: bool) -> None:
     """Run every terminal under every policy; write tables to a folder."""
     from .io.config import build_scenario, load_scenario
     from .io.processes import stop_on_signals
     from .run import execute, summary_text
 
+    if scheduler is not None and executor != "dask":
+        raise InputError(str(config), "--scheduler", scheduler, "is used with --executor dask "
+                         "only")
+    if executor == "dask":
+        try:
+            import dask.distributed  # noqa: F401
+        except ImportError:
+            raise InputError(str(config), "--executor", "dask", "needs the cluster extra: "
+                             "pip install -e '.[cluster]'") from None
     _check_run_folder(out, replace)
     # runs policies, so plug-ins are loaded; nothing is built before the estimate
     scen = load_scenario(config, warn=_warn, load_plugins=True, build=False)
@@ -140,7 +157,7 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int,
                          "no such terminal (known: " + ", ".join(scen.terminal_names()) + ")")
     with Progress("simulating", "h", scale=1 / 3600, decimals=1) as bar:
         tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
-                         progress=bar.to, trace=trace)
+                         progress=bar.to, trace=trace, executor=executor, scheduler=scheduler)
     click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
     click.echo(f"tables -> {out}")
 

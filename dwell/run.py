@@ -2,7 +2,11 @@
 
 The output folder holds ``passes``, ``links``, ``handovers``, ``outages``, ``visible``,
 ``summary`` and ``dwell_ccdf`` as Parquet (one file each, with provenance metadata),
-``summary.txt``, and ``run.toml``, the fully resolved configuration that repeats the run.
+``summary.txt``, and ``run.toml``, the fully resolved configuration that repeats the run; and
+the population tables built from the whole run: ``map`` and ``areas`` (the terminals generated
+by ``[[area]]`` tables, :mod:`dwell.analysis.population`), ``load``, ``load_peaks`` and
+``load_bursts`` (handovers per second into and out of each satellite and cell,
+:mod:`dwell.analysis.load`).
 The folder is built under a temporary name and renamed into place when complete, so it is
 either whole or absent.
 """
@@ -29,10 +33,12 @@ from .radio.cells import cell_names
 
 TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwell_ccdf",
           "sinr_ccdf")
+# built from every terminal's tables at once (after the terminal groups are joined)
+POPULATION_TABLES = ("map", "areas", "load", "load_peaks", "load_bursts")
 RUN_TOML_HEAD = "# Fully resolved configuration of this run"
 # what dwell writes into a run folder: the run itself, then `dwell compare`, `dwell plot`
 # and `dwell report`
-RUN_FILES = frozenset([f"{t}.parquet" for t in TABLES + ("trace",)] +
+RUN_FILES = frozenset([f"{t}.parquet" for t in TABLES + POPULATION_TABLES + ("trace",)] +
                        ["run.toml", "summary.txt", "comparison.txt", "comparison.parquet",
                         "report.html"])
 PLOTS_FOLDER = "plots"
@@ -125,6 +131,25 @@ def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, out
         raise InvariantError(f"{who}: summary counts differ from the tables")
 
 
+def population_tables(scen: Scenario, frames: dict[str, pd.DataFrame]) -> dict[str, pd.DataFrame]:
+    """The ``map``, ``areas`` and load tables of a whole run from its joined tables (they do
+    not depend on how the terminals were split).  Cost: a group-by over the handovers."""
+    from .analysis.load import load_tables
+    from .analysis.population import areas_frame, map_frame
+    from .io.areas import terminal_weights
+
+    names = scen.terminal_names()
+    pop = scen.population
+    first = pop.first_index if pop is not None else len(names)
+    policies = [p["name"] for p in scen.policies]
+    mp = map_frame(frames["summary"], pop, first, names)
+    out = {"map": mp, "areas": areas_frame(mp, [a["name"] for a in scen.areas], policies)}
+    weights = dict(zip(names, terminal_weights(scen).tolist()))
+    out.update(load_tables(frames["handovers"], weights, policies,
+                           float(scen.scenario["duration_s"])))
+    return out
+
+
 def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
     cols = {"terminal": "terminal", "policy": "policy", "handovers_per_hour": "HO/h",
             "worst_hour_handovers": "worst h", "dwell_mean_s": "dwell mean s",
@@ -134,7 +159,25 @@ def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
     head = (f"scenario {scen.scenario['name']}: {len(scen.constellation)} satellites, "
             f"{len(scen.terminals)} terminals, {len(scen.policies)} policies, "
             f"{float(scen.scenario['duration_s']) / 3600:g} h from {scen.scenario['start']}")
-    return head + "\n" + format_table(summary, cols) + "\n"
+    if not scen.areas:
+        return head + "\n" + format_table(summary, cols) + "\n"
+    # generated terminals are summarised per area (weighted means; map.parquet has each one)
+    from .analysis.population import areas_frame, map_frame
+    pop = scen.population
+    listed = summary[~summary["terminal"].astype(str).isin(
+        scen.terminal_names()[pop.first_index:])]
+    mp = map_frame(summary, pop, pop.first_index, scen.terminal_names())
+    per_area = areas_frame(mp, [a["name"] for a in scen.areas],
+                           [p["name"] for p in scen.policies])
+    text = head + "\n"
+    if len(listed):
+        text += format_table(listed, cols) + "\n"
+    text += "areas (weighted means over each area's terminals):\n" + format_table(per_area, {
+        "area": "area", "policy": "policy", "terminals": "terminals", "weight": "weight",
+        "handovers_per_hour_mean": "HO/h", "handovers_per_hour_max": "HO/h max",
+        "satellite_changes_per_hour_mean": "sat ch/h", "outage_fraction_mean": "outage",
+        "outage_fraction_max": "outage max", "mean_in_view_mean": "in view"}) + "\n"
+    return text
 
 
 def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: str = "fast",
@@ -176,16 +219,21 @@ def _worker(args) -> tuple[dict[str, pd.DataFrame], list[str]]:
 def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
             progress: Callable[[float, float], None] | None = None,
             warn: Callable[[str], None] | None = None, workers: int = 1,
-            trace: str | None = None) -> RunTables:
+            trace: str | None = None, executor: str = "local",
+            scheduler: str | None = None) -> RunTables:
     """Run a scenario and write its folder atomically.
 
     With ``workers`` > 1 the terminals are split into contiguous groups run by forked worker
     processes (each propagates the constellation itself); every terminal's results depend on
-    nothing but its own index, so the tables are identical to a one-process run.
+    nothing but its own index, so the tables are identical to a one-process run.  With
+    ``executor = "dask"`` the groups are tasks on a dask.distributed cluster (the scheduler at
+    ``scheduler``, or a local cluster of ``workers`` processes), with the same tables.
     """
     n = len(scen.terminals)
     workers = max(1, min(workers, n))
-    if workers == 1:
+    if executor == "dask":
+        tables = _run_dask(scen, kernel, check, progress, warn, workers, trace, scheduler)
+    elif workers == 1:
         tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn,
                             trace=trace)
     else:
@@ -218,20 +266,115 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
         finally:
             outcomes.close()         # kills the groups still running, if any
             _SHARED.clear()
-        seen: set[str] = set()
-        for _, messages in parts:     # every worker propagates: report each warning once
-            for msg in messages:
-                if msg not in seen and warn is not None:
-                    warn(msg)
-                seen.add(msg)
-        frames = {name: pd.concat([p[0][name] for p in parts], ignore_index=True)
-                  for name in TABLES}
-        for part, _ in parts:               # the trace comes from the worker holding it
-            if "trace" in part:
-                frames["trace"] = part["trace"]
-        tables = RunTables(frames, [])
+        tables = _joined(parts, warn)
+    tables.frames.update(population_tables(scen, tables.frames))
     write_run_folder(scen, tables, out_dir)
     return tables
+
+
+def _joined(parts: list[tuple[dict[str, pd.DataFrame], list[str]]],
+            warn: Callable[[str], None] | None) -> RunTables:
+    """The tables of terminal groups (in terminal order) joined into one run's; each group's
+    warnings reported once (every group propagates, so they repeat)."""
+    seen: set[str] = set()
+    for _, messages in parts:
+        for msg in messages:
+            if msg not in seen and warn is not None:
+                warn(msg)
+            seen.add(msg)
+    frames = {name: pd.concat([p[0][name] for p in parts], ignore_index=True)
+              for name in TABLES}
+    for part, _ in parts:               # the trace comes from the group holding it
+        if "trace" in part:
+            frames["trace"] = part["trace"]
+    return RunTables(frames, [])
+
+
+_DASK_SCENARIOS: dict[str, Scenario] = {}     # per dask worker process: the last scenario built
+
+
+def _dask_group(resolved: dict, source: str, base_dir: str, config_hash: str,
+                terminals: list[int], kernel: str, check: bool, trace: str | None
+                ) -> tuple[dict[str, pd.DataFrame], list[str]]:
+    """One terminal group on a dask worker: the scenario is rebuilt from its resolved
+    configuration (once per worker process and configuration; referenced files must be
+    readable at the same paths there), then run as a local worker would."""
+    from .io.config import scenario_from_dict
+
+    messages: list[str] = []
+    scen = _DASK_SCENARIOS.get(config_hash)
+    if scen is None:
+        scen = scenario_from_dict(resolved, source, Path(base_dir), warn=messages.append,
+                                  load_plugins=True)
+        _DASK_SCENARIOS.clear()
+        _DASK_SCENARIOS[config_hash] = scen
+    from .obstruction import build_site
+    for k in terminals:      # fresh sites: a site's line-of-sight state changes as it runs
+        scen.sites[k] = build_site(scen.terminals[k], scen, k, messages.append)
+    frames = run_tables(scen, terminals, kernel=kernel, check=check, warn=messages.append,
+                        trace=trace).frames
+    return frames, messages
+
+
+def dask_client(workers: int, scheduler: str | None):
+    """(client, local cluster or None): a client of the scheduler at ``scheduler``, or of a
+    new local cluster of ``workers`` single-threaded processes.  InputError when dask is not
+    installed."""
+    try:
+        from dask.distributed import Client, LocalCluster
+    except ImportError:
+        from .io.errors import InputError
+        raise InputError("--executor", None, "dask", "needs the cluster extra: "
+                         "pip install -e '.[cluster]'") from None
+    if scheduler:
+        return Client(scheduler), None
+    cluster = LocalCluster(n_workers=max(1, workers), threads_per_worker=1, processes=True,
+                           dashboard_address=None)
+    return Client(cluster), cluster
+
+
+def _run_dask(scen: Scenario, kernel: str, check: bool,
+              progress: Callable[[float, float], None] | None,
+              warn: Callable[[str], None] | None, workers: int, trace: str | None,
+              scheduler: str | None) -> RunTables:
+    """Terminal groups as tasks on a dask.distributed cluster, joined in terminal order (so
+    the tables equal a local run's).  Two groups per worker thread keep the workers busy
+    while a slow group finishes; each group propagates the constellation itself."""
+    from .io.errors import InputError, RunFailed
+
+    client, cluster = dask_client(workers, scheduler)
+    try:
+        from dask.distributed import as_completed
+        threads = max(1, sum(client.nthreads().values()))
+        n = len(scen.terminals)
+        bounds = np.linspace(0, n, min(n, 2 * threads) + 1).round().astype(int)
+        groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+        resolved = scen.resolved()
+        args = (resolved, scen.source, str(scen.base_dir), scen.config_hash())
+        futures = [client.submit(_dask_group, *args, g, kernel, check, trace, pure=False)
+                   for g in groups]
+        index = {f.key: i for i, f in enumerate(futures)}
+        parts: list = [None] * len(groups)
+        duration_s = float(scen.scenario["duration_s"])
+        done = 0
+        for fut in as_completed(futures):
+            i = index[fut.key]
+            try:
+                parts[i] = fut.result()
+            except InputError:
+                raise
+            except Exception as exc:      # a lost worker (dask retries, then gives up), a bug
+                names = [scen.terminals[k]["name"] for k in groups[i]]
+                raise RunFailed(f"terminals {names[0]}..{names[-1]}: {type(exc).__name__}: "
+                                f"{exc}; nothing was written") from exc
+            done += 1
+            if progress is not None:
+                progress(duration_s * done / len(groups), duration_s)
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+    return _joined(parts, warn)
 
 
 def run_folder_problem(folder: str | Path) -> str | None:
@@ -276,8 +419,11 @@ def _not_ours(name: Path) -> str:
 
 
 def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> None:
+    if any(name not in tables.frames for name in POPULATION_TABLES):
+        tables.frames.update(population_tables(scen, tables.frames))
     with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
-        for name in TABLES + (("trace",) if "trace" in tables.frames else ()):
+        for name in TABLES + POPULATION_TABLES + (("trace",) if "trace" in tables.frames
+                                                  else ()):
             write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
         (tmp / "run.toml").write_text(run_toml(scen, out_dir))
         (tmp / "summary.txt").write_text(summary_text(scen, tables.frames["summary"]))
@@ -298,7 +444,8 @@ def run_toml(scen: Scenario, folder: str | Path | None = None) -> str:
                 return os.path.relpath(p, here)
             except ValueError:          # another drive: keep it absolute
                 return p
-        for table in resolved.get("constellation", []) + resolved.get("terminal", []):
+        for table in (resolved.get("constellation", []) + resolved.get("terminal", [])
+                      + resolved.get("area", [])):
             for key in PATH_KEYS:
                 if isinstance(table.get(key), str):
                     table[key] = rel(table[key])

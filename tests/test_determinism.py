@@ -66,10 +66,11 @@ def two_runs(scenario) -> tuple[Path, Path]:
 def test_same_config_same_seed_gives_identical_bytes(two_runs):
     a, b = two_runs
     tables_a, tables_b = _contents(a, "*.parquet"), _contents(b, "*.parquet")
-    # README lists seven tables per run
+    # README lists the tables of a run (issue 15 added the population and load tables)
     assert set(tables_a) == {f"{t}.parquet" for t in ("passes", "links", "handovers", "outages",
                                                       "visible", "summary", "dwell_ccdf",
-                                                      "sinr_ccdf")}
+                                                      "sinr_ccdf", "map", "areas", "load",
+                                                      "load_peaks", "load_bursts")}
     assert tables_a.keys() == tables_b.keys()
     for name in tables_a:
         assert tables_a[name] == tables_b[name], name

@@ -45,7 +45,7 @@ ROOT = Path(__file__).resolve().parents[1]
 QUICK = ROOT / "configs" / "quick.toml"
 HOURS = 2
 RUN_FIGURES = {"dwell_ccdf", "rates", "in_view", "hourly", "switch_intervals", "slew",
-               "timeline", "sky"}
+               "timeline", "sky", "load"}     # load: every run with handovers (issue 15)
 
 
 def _dwell(*args: str):

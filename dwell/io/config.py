@@ -4,7 +4,9 @@ Top-level tables (the key names are a contract: later versions add keys, never r
 
 - ``[scenario]``: ``start`` (ISO-8601 UTC), ``duration_s``, and optional engine settings;
 - ``[[constellation]]``: one or more sources (see :mod:`dwell.constellations`);
-- ``[[terminal]]``: one or more ground terminals;
+- ``[[terminal]]``: ground terminals, one table each;
+- ``[[area]]``: regions that generate terminals (see :mod:`dwell.io.areas`); a scenario needs
+  at least one ``[[terminal]]`` or ``[[area]]``;
 - ``[[policy]]`` and ``[link]``: serving policies and the link budget (see :mod:`dwell.policies`,
   :mod:`dwell.radio.link`).
 
@@ -29,6 +31,7 @@ from .. import obstruction, policies
 from ..constellations import SOURCES, BuildContext, Constellation
 from ..orbits.timebase import Epoch, parse_utc
 from ..radio import beams, hardware, link
+from . import areas as area_mod
 from .errors import InputError
 from .schema import (
     REQUIRED,
@@ -98,7 +101,7 @@ CONSTELLATION_COMMON = {
     "beams": Field((dict,), None, (), "beam layout of these satellites (see dwell.radio.beams)"),
 }
 
-TOP_LEVEL = ("scenario", "constellation", "terminal", "policy", "link")
+TOP_LEVEL = ("scenario", "constellation", "terminal", "policy", "link", "area")
 
 
 @dataclass
@@ -116,11 +119,23 @@ class Scenario:
     layouts: list[Any] = field(default_factory=list)   # dwell.radio.beams.BeamLayout per table
     epoch: Epoch | None = None
     sites: list[Any] = field(default_factory=list)   # dwell.obstruction.Site per terminal
+    areas: list[dict[str, Any]] = field(default_factory=list)   # checked [[area]] tables
+    population: Any = None       # dwell.io.areas.Population of the generated terminals
 
     def resolved(self) -> dict[str, Any]:
-        """The fully resolved configuration (defaults filled, paths absolute, no nulls)."""
+        """The fully resolved configuration (defaults filled, paths absolute, no nulls).
+
+        With areas it holds the ``[[area]]`` tables and the listed terminals only: the
+        generated terminals follow from the areas and the scenario seed."""
+        listed = self.terminals
+        if self.areas:
+            listed = self.terminals[:self.population.first_index]
         out = {"scenario": self.scenario, "constellation": self.constellations,
-               "terminal": self.terminals, "policy": self.policies, "link": self.link}
+               "terminal": listed, "policy": self.policies, "link": self.link}
+        if self.areas:
+            if not listed:
+                del out["terminal"]
+            out["area"] = self.areas
         return _drop_none(copy.deepcopy(out))
 
     def config_hash(self) -> str:
@@ -307,7 +322,8 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
 
     terms = []
     names: set[str] = set()
-    for i, table in enumerate(_array_of_tables(raw, "terminal", source, True)):
+    area_tables = _array_of_tables(raw, "area", source, False)
+    for i, table in enumerate(_array_of_tables(raw, "terminal", source, not area_tables)):
         where = f"terminal[{i + 1}]"
         params = check_table(table, TERMINAL_KEYS, source, where)
         if params["name"] in names:
@@ -317,6 +333,18 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         hardware.check_terminal(params, source, where)
         _absolute(params, base_dir, source, where)
         terms.append(params)
+
+    def check_template(params: dict, where: str) -> None:
+        obstruction.check_terminal(params, source, where)
+        hardware.check_terminal(params, source, where)
+        _absolute(params, base_dir, source, where)
+
+    area_params, population = [], None
+    if area_tables:
+        area_params, generated, population = area_mod.expand(
+            area_tables, TERMINAL_KEYS, int(scen["seed"]), source, names, len(terms),
+            check_template)
+        terms.extend(generated)
 
     if link_params["interference"] is None:   # resolved, so run.toml says which
         link_params["interference"] = any(c["beams"]["layout"] != "single" for c in consts)
@@ -337,7 +365,8 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
     if msg:
         warn(msg)
 
-    out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch)
+    out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch,
+                   areas=area_params, population=population)
     out.layouts = [beams.BeamLayout.from_params(c["beams"]) for c in consts]
     if build:
         build_scenario(out, warn)

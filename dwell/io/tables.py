@@ -15,7 +15,7 @@ from .atomic import atomic_path
 
 CATEGORY_COLUMNS = ("terminal", "policy", "satellite", "shell", "from_satellite", "to_satellite",
                     "trigger", "cause", "start_cause", "end_cause", "end_reason", "start_reason",
-                    "quantity")
+                    "quantity", "area", "level", "element", "direction")
 
 
 def provenance(scen) -> dict[str, str]:
