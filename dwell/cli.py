@@ -20,23 +20,45 @@ from .io.text import format_table
 from .progress import Progress
 
 
+_HELD: list[str] | None = None     # warnings held back until the input is known to be good
+
+
 def _warn(msg: str) -> None:
-    click.echo(msg, err=True)
+    if _HELD is not None:
+        _HELD.append(msg)
+    else:
+        click.echo(msg, err=True)
+
+
+def _input_checked() -> None:
+    """The input is good: show the warnings held so far, then speak at once."""
+    global _HELD
+    held, _HELD = _HELD or [], None
+    for msg in held:
+        click.echo(msg, err=True)
 
 
 def guarded(fn):
-    """Turn input and output errors into one line on stderr and exit status 2."""
+    """Turn input and output errors into one line on stderr and exit status 2 (warnings
+    about input that then fails are dropped: bad input is one line)."""
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
+        global _HELD
+        _HELD = []
         try:
-            return fn(*args, **kwargs)
+            out = fn(*args, **kwargs)
+            _input_checked()
+            return out
         except InputError as exc:
+            _HELD = None
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
         except OutputError as exc:
+            _HELD = None
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
         except RunFailed as exc:
+            _input_checked()
             click.echo(f"error: {exc}", err=True)
             sys.exit(1)
         except MemoryError:
@@ -87,6 +109,7 @@ def passes(config: Path, out: Path, force: bool) -> None:
     scen = load_scenario(config, warn=_warn, build=False)
     _checked_cost(scen, force, measure=False)
     build_scenario(scen, _warn)
+    _input_checked()
     geo = Geometry(scen, warn=_warn, slots=False)
     with Progress("geometry", "chunks", rate_unit="chunk") as bar:
         geo.run_all(bar.to)
@@ -148,6 +171,7 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int, executo
     scen = load_scenario(config, warn=_warn, load_plugins=True, build=False)
     _checked_cost(scen, force, workers=workers, kernel=kernel)
     build_scenario(scen, _warn)
+    _input_checked()
     stop_on_signals()        # SIGTERM unwinds: workers killed, temporary folder removed
     if not scen.policies:
         raise InputError(str(config), "[[policy]]", None, "dwell run needs at least one policy",
@@ -204,6 +228,7 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float,
     site = scen.sites[names.index(terminal)]
     if not site.obstructions:
         raise InputError(str(config), "--terminal", terminal, "this terminal has no mask or canyon")
+    _input_checked()
     az = np.arange(0.0, 360.0, step_deg)
     el = np.maximum(site.mask_deg(az, np.full(az.shape, float(at_s))), 0.0)
     lines = ["azimuth_deg,elevation_deg"] + [f"{a:.4f},{e:.4f}" for a, e in zip(az, el)]
@@ -359,6 +384,7 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
 
     # every run checked as dwell run would, before the first starts (plug-ins only run for real)
     check_runs(plan, load_plugins=not dry_run, warn=_once(_warn), each=fits)
+    _input_checked()
     if not dry_run:
         check_output(out, folder=True)
     problem = folder_problem(plan, out, fresh)

@@ -25,12 +25,17 @@ class InputError(Exception):
         return self._line()
 
     def _line(self) -> str:
-        head = self.source
+        head = _one_line(self.source)
         if self.where:
-            head += f": {self.where}"
+            head += f": {_one_line(str(self.where))}"
             if self.show_value:
                 head += f" = {_short(self.value)}"
-        return f"{head}: {self.reason}" if self.reason else head
+        return f"{head}: {_one_line(self.reason)}" if self.reason else head
+
+
+def _one_line(text: str) -> str:
+    """Control characters (a key named with a newline, say) shown escaped: one line always."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
 
 
 def _short(value: object, limit: int = 60) -> str:
