@@ -22,7 +22,7 @@ import pandas as pd
 import tomli_w
 
 from .analysis.records import SiteCoverage, handovers_frame, links_frame, outages_frame
-from .analysis.summary import dwell_ccdf, sinr_ccdf_frame, summarize
+from .analysis.summary import dwell_ccdf, idle_columns, sinr_ccdf_frame, summarize
 from .io.atomic import atomic_dir
 from .io.config import Scenario
 from .io.outputs import passes_frame, visible_frame
@@ -79,6 +79,7 @@ def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool =
         row.update(summarize(lf, hf, of, vis, budget, geo.duration_s,
                              len(res.records.failures), res.records.preparing, scen.seed,
                              res.records.sinr, len(res.records.idle)))
+        row.update(idle_columns(row, res.settings.idle, hf))
         sc = sinr_ccdf_frame(res.records.sinr)
         sc.insert(0, "policy", res.policy)
         sc.insert(0, "terminal", res.terminal)
@@ -122,7 +123,9 @@ def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, out
         order = np.argsort(s)
         if np.any(s[order][1:] < e[order][:-1] - 1e-9):
             raise InvariantError(f"{who}: overlapping links on aperture {ap}")
-    targets = np.array([h[2] for h in res.records.handovers], dtype=np.int64)
+    done = [h for h in res.records.handovers if h[23] == "success"]
+    hos = hos[hos["outcome"].astype(str) == "success"] if len(hos) else hos
+    targets = np.array([h[2] for h in done], dtype=np.int64)
     times = hos["time_utc"].to_numpy(dtype=float)
     ok = cov.in_window(targets, times) if targets.size else np.zeros(0, bool)
     if not ok.all():

@@ -77,8 +77,11 @@ def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0
     fc = df["from_cell"].to_numpy(dtype=np.int64)
     tc = df["to_cell"].to_numpy(dtype=np.int64)
     pp = np.zeros(len(df), dtype=bool)
-    if len(df) > 1:
-        pp[1:] = (tc[1:] == fc[:-1]) & (t[1:] - t[:-1] <= res.settings.ping_pong_window_s)
+    ok = np.flatnonzero(df["outcome"].to_numpy(dtype=object) == "success") if len(df) else \
+        np.zeros(0, dtype=np.int64)
+    if ok.size > 1:     # between handovers that happened
+        a, b = ok[:-1], ok[1:]
+        pp[b] = (tc[b] == fc[a]) & (t[b] - t[a] <= res.settings.ping_pong_window_s)
     return pd.DataFrame({
         "terminal": res.terminal, "policy": res.policy, "time_utc": t,
         "from_satellite": names_arr[frm] if len(df) else [],
@@ -103,6 +106,10 @@ def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0
         "to_delay_ms": one_way_delay_ms(df["to_range_km"].to_numpy(dtype=float)),
         "from_doppler_hz": doppler_hz(df["from_range_rate_km_s"].to_numpy(dtype=float), frequency_ghz),
         "to_doppler_hz": doppler_hz(df["to_range_rate_km_s"].to_numpy(dtype=float), frequency_ghz),
+        # the procedure (dwell.radio.procedure): command received, access complete, outcome
+        "command_utc": df["command_s"].to_numpy(dtype=float),
+        "complete_utc": df["complete_s"].to_numpy(dtype=float),
+        "outcome": df["outcome"].to_numpy(dtype=object),
     })
 
 

@@ -69,12 +69,20 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
               idle: int = 0) -> dict:
     """One summary row for one run (see the module docstring for the intervals).
 
-    Handovers count every change of serving cell; ``satellite_changes`` only those to another
+    Handovers count every change of serving cell that happened (attempts that failed or came
+    too late are counted apart); ``satellite_changes`` only those to another
     satellite (the antenna re-points) and ``beam_changes`` those within one satellite.  Slew,
     re-pointing and the make-before-break aperture count concern satellite changes only.
     ``sinr`` is the run's serving-SINR histogram (:class:`dwell.kernel.common.SinrHistogram`).
     """
     hours = duration_s / 3600.0
+    attempts = handovers
+    if "outcome" in handovers.columns and len(handovers):
+        handovers = handovers[handovers["outcome"].astype(str) == "success"]
+    n_failed = int((attempts["outcome"].astype(str) == "failure").sum()) \
+        if "outcome" in attempts.columns and len(attempts) else 0
+    n_late = int((attempts["outcome"].astype(str) == "too-late").sum()) \
+        if "outcome" in attempts.columns and len(attempts) else 0
     n_ho = int(len(handovers))
     ho_lo, ho_hi = poisson_rate_interval(n_ho, hours)
     edges = hour_edges(duration_s)
@@ -121,6 +129,9 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
     row = {
         "duration_h": hours,
         "handovers": n_ho,
+        "handover_attempts": int(len(attempts)),
+        "handover_failures": n_failed,
+        "too_late_handovers": n_late,
         "handovers_per_hour": n_ho / hours,
         "handovers_per_hour_lo": ho_lo, "handovers_per_hour_hi": ho_hi,
         "worst_hour_handovers": worst,
@@ -171,6 +182,30 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
         row[f"outage_{cause.replace('-', '_')}_fraction"] = float(
             (real.loc[sel, "end_utc"] - real.loc[sel, "start_utc"]).sum() / duration_s)
     return row
+
+
+def idle_columns(row: dict, idle: bool, handovers: pd.DataFrame) -> dict:
+    """Columns of idle-mode (reselection) policies, from a summary row: reselections (trigger
+    "reselection"; cell selections after the camped cell stopped being suitable are
+    ``selections``), time camped and not camped per hour, and camping losses (no suitable
+    cell; idle mode has no radio link failure, so that column is 0).  NaN / 0 for connected
+    policies."""
+    if not idle:
+        return {"reselections": 0, "reselections_per_hour": 0.0, "selections": 0,
+                "camped_s_per_hour": math.nan, "not_camped_s_per_hour": math.nan,
+                "camping_losses": 0}
+    hours = row["duration_h"]
+    done = handovers
+    if len(done) and "outcome" in done.columns:
+        done = done[done["outcome"].astype(str) == "success"]
+    trig = done["trigger"].astype(str) if len(done) else pd.Series([], dtype=str)
+    n_res = int((trig == "reselection").sum())
+    return {"reselections": n_res, "reselections_per_hour": n_res / hours,
+            "selections": int((trig == "selection").sum()),
+            "camped_s_per_hour": row["serving_s"] / hours,
+            "not_camped_s_per_hour": (row["outage_s"] + row["switching_s"]) / hours,
+            "camping_losses": row["radio_link_failures"], "radio_link_failures": 0,
+            "idle_transitions": 0}
 
 
 def mbb_apertures(links: pd.DataFrame, handovers: pd.DataFrame) -> int:

@@ -3,33 +3,42 @@ cost of executing a handover.  The kernels differ only in how they find the next
 
 Execution model of one terminal under one policy (both kernels implement exactly this):
 
-- Down (at the start, after a radio link failure): at the first measurement instant with a
-  satellite in view the policy selects one; the link starts then (initial access) or after
-  ``reestablishment_s`` (after a failure).
-- Up on cell c of satellite s: radio link monitoring takes one indication per measurement
-  instant: out-of-sync when c is not measured or its SINR is below ``q_out_sinr_db``, in-sync
-  when measured at or above ``q_in_sinr_db`` (neither in between).  N310 consecutive out-of-sync start T310;
-  N311 consecutive in-sync before it expires stop it; expiry is a radio link failure (TS 38.331
-  section 5.3.10).  The minimum-dwell guard releases ``min_dwell_s`` after the link starts, or
-  at the first out-of-sync instant if earlier.
-- Next event of a link: the earliest of the policy's decision, the loss of s for ephemeris-aware
-  policies (the end of each of s's windows, if a satellite is in view then), a radio link
-  failure, and the end of the scenario; at equal times in that order.
+- Down (at the start, after a radio link failure or handover failure): at the first
+  measurement instant with a suitable cell (RSRP above ``q_rxlevmin_dbm``, SINR at or above
+  Q_out) the policy selects one; the link starts then (initial access) or after
+  ``reestablishment_s`` (re-establishment while T311 runs, else a new setup from idle).
+- Up on cell c of satellite s: radio link monitoring on the TS 38.133 cadence
+  (:mod:`dwell.kernel.rlm`): an indication every ``rlm_indication_s``, out-of-sync when the
+  SINR averaged over the last ``rlm_evaluation_out_s`` is below ``q_out_sinr_db`` (or c is not
+  measured), in-sync when the one over ``rlm_evaluation_in_s`` is at or above
+  ``q_in_sinr_db``.  N310 consecutive out-of-sync start T310; N311 consecutive in-sync before it
+  expires stop it; expiry is a radio link failure (TS 38.331 section 5.3.10).  The
+  minimum-dwell guard releases ``min_dwell_s`` after the link starts, or at the first
+  out-of-sync instant if earlier.  Idle-mode rules (``Policy.idle``) have no monitoring:
+  camping is lost at the first measurement with c unmeasured or not suitable.
+- Next event of a link: the earliest of the policy's decision, an earth-fixed cell's switch, the
+  loss of s for ephemeris-aware policies (the end of each of s's windows, if a satellite is in
+  view then), a radio link failure, and the end of the scenario; at equal times in that order.
 - A link's policy decisions come strictly after the decision that opened it (a zero-length
   break must not let the next decision fall at the same instant).
 - A policy decision needs the serving link: one that falls while the serving satellite is out
   of view (set, blocked, or none of its cells measured) cannot be commanded and is dropped;
   the policy starts afresh from the first measurement instant with the satellite back in view
-  (the same for every rule).  Conditional handover, executed by the terminal itself with
-  candidates prepared earlier, is exempt (``acts_after_loss``).
-- Handover at t to cell c' of satellite n.  Within one satellite (n = s, a beam or cell
-  change): no re-pointing; the link to c ends at t and the new one starts after a break of
-  ``interruption_s`` (the radio handover's; a second aperture does not help within one
-  satellite).  To another
-  satellite, break-before-make (one aperture): the link to s ends at t, the terminal is
-  switching for ``interruption_s`` + re-pointing time, then the link to n starts.
-  Make-before-break (two or more apertures): a free aperture re-points while s still serves;
-  the link to s ends at t + re-pointing, a break of ``mbb_interruption_s`` follows.
+  (the same for every rule).  Conditional handover and idle reselection, decided by the
+  terminal itself, are exempt (``acts_after_loss``).
+- Handover decided at t to cell c' of satellite n, through the procedure of
+  :mod:`dwell.radio.procedure` (``procedure = "nr"``): command at t_cmd (after report,
+  decision and preparation for measurement-based rules; t for the others), the terminal leaves
+  c at t_leave = t_cmd + RRC processing, re-points (another satellite), and access completes at
+  t_done.  Break-before-make: the link to c ends at t_leave, the new one starts at t_done.
+  Make-before-break (two or more apertures, another satellite): a free aperture re-points from
+  t; the link to c ends at t_done and a break of ``mbb_interruption_s`` follows.  Too late (the
+  source fails before t_leave): a radio link failure instead.  Failure (target unfit at t_done,
+  or access longer than T304): handover failure at T304's expiry, then as after a failure.
+  ``procedure = "instant"`` (and idle mode): the handover takes effect at t; within one
+  satellite the break is ``interruption_s``; to another, break-before-make breaks for
+  ``interruption_s`` + re-pointing, make-before-break keeps s until t + re-pointing and breaks
+  for ``mbb_interruption_s``.
   Re-pointing: mechanical apertures slew the angle between the old and new directions at
   ``slew_rate_deg_s`` (+ ``settle_s``); electronic ones take ``retune_s``.
 """
@@ -38,6 +47,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -45,6 +55,7 @@ from ..policies.base import Decision, Policy, Rows, strongest_of_satellite
 from ..radio.cells import BEAM_STRIDE, ground_key, is_ground
 from ..radio.hardware import Hardware
 from ..radio.measure import MeasurementStream
+from ..radio.procedure import ProcedureSettings
 
 PRIORITY = {"decision": 0, "switch": 1, "loss": 2, "rlf": 3, "end": 4}
 
@@ -111,6 +122,9 @@ class RunSettings:
     ping_pong_window_s: float
     t311_s: float = 3.0
     q_rxlevmin_dbm: float = -140.0
+    procedure: Any = None                 # dwell.radio.procedure.ProcedureSettings
+    idle: bool = False                    # idle-mode rule: no radio link monitoring
+    cho_recovery: bool = False            # recover onto a prepared CHO candidate after failure
 
     @classmethod
     def of(cls, terminal: dict, policy: Policy, link_params: dict, duration_s: float,
@@ -121,7 +135,11 @@ class RunSettings:
                    float(p["t310_s"]), float(p["reestablishment_s"]), float(p["min_dwell_s"]),
                    float(link_params["q_out_sinr_db"]), float(link_params["q_in_sinr_db"]),
                    float(p["ping_pong_window_s"]), float(p.get("t311_s", 3.0)),
-                   float(p.get("q_rxlevmin_dbm", -140.0)))
+                   float(p.get("q_rxlevmin_dbm", -140.0)),
+                   # idle mode signals nothing: a reselection takes effect when decided
+                   ProcedureSettings.of({**p, "procedure": "instant"} if policy.idle else p,
+                                        link_params),
+                   bool(policy.idle), bool(getattr(policy, "recovers_by_cho", False)))
 
 
 @dataclass
@@ -135,13 +153,15 @@ class Records:
     weak: list[tuple] = field(default_factory=list)        # serving in view but below q_out: start, end
     failures: list[float] = field(default_factory=list)    # radio link failure instants
     idle: list[float] = field(default_factory=list)        # T311 expiries: the terminal went idle
+    handover_failures: list[float] = field(default_factory=list)   # T304 expiries
     events: int = 0                                        # kernel wake-ups
     sinr: "SinrHistogram | None" = None                    # serving SINR per clock hour
 
     def signature(self) -> list[tuple]:
         """What two kernels must agree on: every handover (time, from, to, trigger, cells) and
         link."""
-        return ([("ho", round(h[0], 9), h[1], h[2], h[3], h[16], h[17]) for h in self.handovers] +
+        return ([("ho", round(h[0], 9), h[1], h[2], h[3], h[16], h[17], h[23])
+                 for h in self.handovers] +
                 [("link", k[0], round(k[2], 9), round(k[3], 9), k[4], k[5], k[6])
                  for k in self.links])
 
@@ -152,7 +172,7 @@ HANDOVER_FIELDS = ("time_s", "from_sat", "to_sat", "trigger", "from_elevation_de
                    "to_elevation_deg", "from_rsrp_dbm", "to_rsrp_dbm", "slew_angle_deg",
                    "aperture", "interruption_s", "repoint_s", "from_range_km", "to_range_km",
                    "from_range_rate_km_s", "to_range_rate_km_s", "from_cell", "to_cell",
-                   "from_beam", "to_beam", "scope")
+                   "from_beam", "to_beam", "scope", "command_s", "complete_s", "outcome")
 
 
 class SinrHistogram:
@@ -228,6 +248,20 @@ def monitoring(rows: Rows, cell: int, in_view_until_s: float, q_out: float, q_in
     return col, ~measured | low, measured & (sinr >= q_in), weak
 
 
+@dataclass
+class Handover:
+    """How a planned handover unfolds: the source link ends at ``old_end``; on success the
+    target link starts at ``t_new`` after a break ``brk``; on failure (handover failure,
+    ``outcome == "failure"``) the terminal re-establishes from ``t_new`` (T304 expiry); when
+    ``too-late`` the source link fails at ``t_end`` before the terminal could leave it."""
+
+    old_end: float
+    brk: float
+    t_new: float
+    outcome: str
+    t_end: float
+
+
 def serving_stop(rows: Rows, r: int, cell: int, e0: float) -> float:
     """When ephemeris says the serving cell stops serving the terminal: the end of its
     satellite's floor pass or an earth-fixed cell's switch, by the cell at row r (the
@@ -244,6 +278,17 @@ def serving_in_view(rows: Rows, r: int, sat: int, t_s: float) -> bool:
     the cells of row r?  A handover command needs the serving link to reach the terminal."""
     hit = (rows.sat[r] == sat) & (rows.start_s[r] <= t_s) & (t_s < rows.end_s[r])
     return bool(hit.any())
+
+
+def camping_lost_s(rows: Rows, col: np.ndarray, t_from_s: float, q_rxlevmin_dbm: float) -> float:
+    """Idle mode: the first measurement instant at or after ``t_from_s`` at which the camped
+    cell (column ``col`` per row) is unmeasured or fails the S-criterion, or inf."""
+    rr = np.arange(rows.n)
+    q = np.where(col >= 0, rows.rsrp_dbm[rr, np.maximum(col, 0)], -np.inf)
+    with np.errstate(invalid="ignore"):
+        bad = (rows.t_s >= t_from_s) & ~(q - q_rxlevmin_dbm > 0)
+    i = np.flatnonzero(bad)
+    return float(rows.t_s[i[0]]) if i.size else math.inf
 
 
 def suitable(rows: Rows, q_rxlevmin_dbm: float, q_out_db: float) -> np.ndarray:
@@ -317,6 +362,35 @@ class Execution:
         self.link_reason = ""
         self.next_cell = (-1, -1, -1)         # (satellite, cell, beam) a handover goes to
         self.decided_at = -math.inf            # the decision that opened the current link
+        self.prepared: set[int] = set()        # CHO candidates prepared at the last failure
+
+    def note_failure(self, t_s: float, failed_cells: tuple[int, ...]) -> None:
+        """Remember the conditional-handover candidates prepared when the link failed at
+        ``t_s``: the cells measured at the first measurement from then on, but the failed ones
+        (common practice: the network prepares the cells the terminal reports)."""
+        if not self.s.cho_recovery:
+            return
+        from ..radio.measure import row_at_or_after
+        k = min(row_at_or_after(t_s, self.s.period_s), self.stream.K - 1)
+        rows = self.stream.rows(k, k + 1)
+        self.prepared = {int(c) for c, q in zip(rows.cell[0].tolist(), rows.sat[0].tolist())
+                         if q >= 0 and c not in failed_cells}
+
+    def recovery(self, rows: Rows, r: int, col: int, t_s: float,
+                 t_fail_s: float) -> tuple[str, float] | None:
+        """After a failure, the cell selected at ``t_s`` is a prepared CHO candidate while T311
+        runs: the terminal executes that candidate's configuration instead of re-establishing
+        (TS 38.331 5.3.7.3, attemptCondReconfig).  Returns ("cho-recovery", the time access
+        takes) or None."""
+        cell = int(rows.cell[r, col])
+        if cell not in self.prepared or t_s >= t_fail_s + self.s.t311_s:
+            return None
+        self.prepared = set()
+        ps = self.s.procedure
+        if ps.model == "instant":
+            return "cho-recovery", self.s.hardware.interruption_s
+        ow = ps.one_way_s(float(rows.range_km[r, col]), float(rows.elevation_deg[r, col]))
+        return "cho-recovery", ps.access_s + (4.0 if ps.rach else 1.0) * ow
 
     def open_link(self, sat: int, t_s: float, reason: str, cell: int = -1, beam: int = 0) -> None:
         self.link_sat, self.link_start, self.link_reason = sat, t_s, reason
@@ -337,12 +411,20 @@ class Execution:
                                    self.link_reason, reason, self.link_cell, self.link_beam))
         self.link_sat = -1
 
-    def plan_handover(self, rows: Rows, d: Decision, trigger: str) -> tuple[float, float, float]:
-        """Record handover ``d`` and return (time the old link ends, break, new link start).
+    def plan_handover(self, rows: Rows, d: Decision, trigger: str, t_c: float = 0.0,
+                      e0: float = math.inf, rlm=None) -> "Handover":
+        """Record handover ``d``, planned through the procedure of
+        :mod:`dwell.radio.procedure`, and say how it unfolds (see :class:`Handover`).
 
         The target cell is ``d.cell`` (or the target satellite's strongest cell at the
-        decision's row).  A change within the serving satellite re-points nothing."""
+        decision's row).  A change within the serving satellite re-points nothing.  ``t_c`` and
+        ``e0`` are the serving link's start and its window's end (for the source's radio link
+        monitoring until the terminal leaves it); the rows the procedure needs beyond the
+        decision are read from the stream."""
+        from ..radio.procedure import timeline
+
         hw = self.s.hardware
+        ps = self.s.procedure
         r = rows.row_at(d.time_s, self.s.period_s)
         row = rows.sat[r].tolist()
         cf = row.index(self.link_sat) if self.link_sat in row else -1
@@ -361,37 +443,91 @@ class Execution:
         intra = d.target == self.link_sat
         az, el = rows.azimuth_deg, rows.elevation_deg
         self.decided_at = d.time_s
+        nan = math.nan
         if intra:       # an RRC handover between cells of one satellite: nothing re-points
             slew, repoint = 0.0, 0.0
             ap = self.aperture
-            old_end, brk = d.time_s, hw.interruption_s
         else:
             old = (float(az[r, cf]), float(el[r, cf])) if cf >= 0 else \
                 pointing(rows, r, self.link_sat)
             new = (float(az[r, ct]), float(el[r, ct])) if ct >= 0 else pointing(rows, r, d.target)
             slew = angle_between_deg(old, new)
             repoint = float(hw.repoint_s(slew))
-            if hw.make_before_break:
-                ap = (self.aperture + 1) % hw.apertures
+            ap = (self.aperture + 1) % hw.apertures if hw.make_before_break else self.aperture
+        mbb = hw.make_before_break and not intra
+        src = (float(rows.range_km[r, cf]), float(el[r, cf])) if cf >= 0 else (nan, nan)
+        tgt = (float(rows.range_km[r, ct]), float(el[r, ct])) if ct >= 0 else (nan, nan)
+        t_cmd, t_leave, t_access, t_done = timeline(ps, d.time_s, trigger, True, intra, src,
+                                                    tgt, repoint, mbb)
+        outcome, t_end = "success", t_done
+        if ps.model == "instant":     # the older model: effect at the decision
+            if intra:
+                old_end, brk = d.time_s, hw.interruption_s
+            elif mbb:
                 old_end, brk = d.time_s + repoint, hw.mbb_interruption_s
-                self.rec.preparing.append((d.time_s, min(old_end, self.s.duration_s)))
             else:
-                ap = self.aperture
                 old_end, brk = d.time_s, hw.interruption_s + repoint
-        nan = math.nan
+            t_new = old_end + brk
+        else:
+            if mbb:
+                old_end, brk = t_done, hw.mbb_interruption_s
+            else:
+                old_end, brk = t_leave, t_done - t_leave
+            t_new = old_end + brk
+            outcome, t_end = self._outcome(d, to_cell, t_c, e0, t_leave, t_access, t_done, rlm)
+            if outcome == "failure":
+                t_new = t_end
+                old_end = min(old_end, max(t_leave, t_access if mbb else t_leave))
+            elif outcome == "too-late":
+                old_end = t_new = t_end
+        if mbb and outcome != "too-late":
+            self.rec.preparing.append((d.time_s, min(old_end, self.s.duration_s)))
         self.rec.handovers.append((
             d.time_s, self.link_sat, d.target, trigger,
             float(el[r, cf]) if cf >= 0 else nan, float(el[r, ct]) if ct >= 0 else nan,
             float(rows.rsrp_dbm[r, pf]) if pf >= 0 else nan,
-            float(rows.rsrp_dbm[r, pt]) if pt >= 0 else nan, slew, ap, brk, repoint,
-            float(rows.range_km[r, cf]) if cf >= 0 else nan,
-            float(rows.range_km[r, ct]) if ct >= 0 else nan,
+            float(rows.rsrp_dbm[r, pt]) if pt >= 0 else nan, slew, ap,
+            brk if outcome == "success" else t_new - old_end, repoint,
+            src[0], tgt[0],
             _value(rows.range_rate_km_s, r, cf), _value(rows.range_rate_km_s, r, ct),
             self.link_cell, to_cell, self.link_beam, to_beam,
-            "intra-satellite" if intra else "inter-satellite"))
+            "intra-satellite" if intra else "inter-satellite", t_cmd, t_done, outcome))
         self._next_aperture = ap
         self.next_cell = (d.target, to_cell, to_beam)
-        return old_end, brk, old_end + brk
+        return Handover(old_end, brk, t_new, outcome, t_end)
+
+    def _outcome(self, d: Decision, to_cell: int, t_c: float, e0: float, t_leave: float,
+                 t_access: float, t_done: float, rlm) -> tuple[str, float]:
+        """too-late (the source fails before the terminal leaves it), failure (the target is not
+        fit for access when it completes, or access outlasts T304) or success, and when."""
+        from ..radio.measure import row_at_or_after
+        from .rlm import indications, quality_db
+
+        s = self.s
+        kc = row_at_or_after(t_c, s.period_s)
+        k_end = row_at_or_after(min(max(t_leave, t_done), s.duration_s), s.period_s) + 2
+        rows = self.stream.rows(kc, k_end)
+        if rlm is not None and t_leave > d.time_s:
+            col = rows.column_of_cell(self.link_cell)
+            t_i, oos, ins = indications(rows, col, t_c, min(t_leave, s.duration_s), t_c, e0, rlm,
+                                        keep_good=s.n311 + 1)
+            t_f = first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
+            if d.time_s <= t_f < t_leave:
+                return "too-late", t_f
+        t_hof = t_access + s.procedure.t304_s
+        if t_done >= s.duration_s:
+            return "success", t_done
+        if t_done - t_access > s.procedure.t304_s:
+            return "failure", t_hof
+        col_t = rows.column_of_cell(to_cell)
+        r = rows.row_at(t_done)
+        if col_t[r] < 0:
+            return "failure", t_hof
+        e_t = float(rows.end_s[r, col_t[r]])
+        q = float(quality_db(rows, col_t, np.array([t_done]), e_t)[0])
+        if not q >= s.q_out_db:
+            return "failure", t_hof
+        return "success", t_done
 
     def open_next(self, t_s: float) -> None:
         """Open the link a planned handover goes to."""

@@ -16,8 +16,8 @@ import simpy
 
 from ..policies.base import Decision, Link, Policy
 from ..radio.measure import row_at_or_after
-from .common import (PRIORITY, Execution, KernelRun, cell_switch, first_rlf_s, select_among,
-                     serving_in_view, serving_stop, suitable)
+from .common import (PRIORITY, Execution, KernelRun, camping_lost_s, cell_switch, first_rlf_s,
+                     select_among, serving_in_view, serving_stop, suitable)
 from .rlm import RlmTiming, indications, weak_intervals
 
 FIRST_ROWS = 64
@@ -63,8 +63,14 @@ class FastRun(KernelRun):
                     return
                 kind, t_next, target = outcome
                 if kind == "rlf":
+                    self.ex.note_failure(t_next, (self.ex.link_cell,))
                     self.ex.close_link(t_next, "failure")
                     self.ex.rec.failures.append(t_next)
+                    t = t_next
+                    break
+                if kind == "hof":
+                    self.ex.note_failure(t_next, (self.ex.link_cell, self.ex.next_cell[1]))
+                    self.ex.rec.handover_failures.append(t_next)
                     t = t_next
                     break
                 if target is None:                  # handover into the scenario's end
@@ -87,8 +93,11 @@ class FastRun(KernelRun):
                 r = int(hit[0])
                 t_r = float(rows.t_s[r])
                 col = select_among(self.policy, rows, r, t_r, ok[r])
+                recovered = None if initial else self.ex.recovery(rows, r, col, t_r, t_from)
                 if initial:
                     reason, delay = "initial", 0.0
+                elif recovered is not None:
+                    reason, delay = recovered
                 else:
                     reason = "reestablishment" if t_r < t_from + s.t311_s else "setup"
                     delay = s.reestablishment_s
@@ -140,6 +149,8 @@ class FastRun(KernelRun):
                 if loss is not None:
                     events.append((loss.time_s, PRIORITY["loss"], "loss", loss))
             t_f = first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
+            if s.idle:       # idle mode: camping is lost where no cell is suitable
+                t_f = camping_lost_s(rows, col, t_c, s.q_rxlevmin_dbm)
             if math.isfinite(t_f):
                 events.append((t_f, PRIORITY["rlf"], "rlf", None))
             events.append((s.duration_s, PRIORITY["end"], "end", None))
@@ -159,18 +170,30 @@ class FastRun(KernelRun):
         yield self._wait_until(when)
         if kind == "rlf":
             return ("rlf", when, None)
-        old_end, brk, t_new = ex.plan_handover(rows, d, d.trigger)
+        plan = ex.plan_handover(rows, d, d.trigger, t_c, e0, self.rlm)
+        return (yield from self._execute(plan, when))
+
+    def _execute(self, plan, when: float):
+        """Carry out a planned handover (see :class:`dwell.kernel.common.Handover`)."""
+        ex, s = self.ex, self.s
+        old_end, brk, t_new = plan.old_end, plan.brk, plan.t_new
+        if plan.outcome == "too-late":       # the source failed before the terminal left it
+            yield self._wait_until(min(plan.t_end, s.duration_s))
+            return ("rlf", plan.t_end, None) if plan.t_end < s.duration_s else None
         if old_end > when:
-            yield self._wait_until(min(old_end, s.duration_s))   # make-before-break re-pointing
+            yield self._wait_until(min(old_end, s.duration_s))   # until the terminal leaves
         if old_end >= s.duration_s:
             ex.close_link(s.duration_s, "end")
             return None
         ex.switch(old_end, brk)
+        if plan.outcome == "failure":        # handover failure at T304 expiry
+            yield self._wait_until(min(t_new, s.duration_s))
+            return ("hof", t_new, None) if t_new < s.duration_s else None
         if t_new >= s.duration_s:
             yield self._wait_until(s.duration_s)
             return ("handover", t_new, None)
         yield self._wait_until(t_new)
-        return ("handover", t_new, d.target)
+        return ("handover", t_new, ex.next_cell[0])
 
     def _commandable(self, rows, link: Link, sat: int) -> Decision | None:
         """The policy's first decision that can be commanded: one falling while the serving

@@ -55,8 +55,11 @@ class NaiveRun(KernelRun):
                 k += 1
                 continue
             col = select_among(self.policy, rows, r, t_k, ok)
+            recovered = None if initial else ex.recovery(rows, r, col, t_k, t_fail)
             if initial:
                 reason, t_link = "initial", t_k
+            elif recovered is not None:
+                reason, t_link = recovered[0], t_k + recovered[1]
             else:
                 reason = "reestablishment" if t_k < t_fail + s.t311_s else "setup"
                 t_link = t_k + s.reestablishment_s
@@ -75,8 +78,15 @@ class NaiveRun(KernelRun):
                     return
                 kind, t_next, target = outcome
                 if kind == "rlf":
+                    ex.note_failure(t_next, (ex.link_cell,))
                     ex.close_link(t_next, "failure")
                     ex.rec.failures.append(t_next)
+                    k = self._row(t_next)
+                    t_fail = t_next
+                    break
+                if kind == "hof":
+                    ex.note_failure(t_next, (ex.link_cell, ex.next_cell[1]))
+                    ex.rec.handover_failures.append(t_next)
                     k = self._row(t_next)
                     t_fail = t_next
                     break
@@ -164,14 +174,17 @@ class NaiveRun(KernelRun):
                                                     losses_first, self.rlm)):
                 if out_i:
                     oc, ic = oc + 1, 0
-                    if expiry is None and oc >= s.n310:
+                    if expiry is None and oc >= s.n310 and not s.idle:
                         expiry = float(ti) + s.t310_s
                     if link.release_s > ti:
                         link.release_s = float(ti)    # the guard lifts when the link is lost
                 elif in_i:
                     ic, oc = ic + 1, 0
-                    if expiry is not None and ic >= s.n311 and ti < expiry:
+                    if expiry is not None and ic >= s.n311 and ti < expiry and not s.idle:
                         expiry, oc, ic = None, 0, 0
+            if s.idle and expiry is None and t_k >= t_c and not (
+                    measured and rows.rsrp_dbm[r, col] - s.q_rxlevmin_dbm > 0):
+                expiry = t_k              # idle mode: no suitable camped cell (S-criterion)
             if sat_col >= 0 and rows.end_s[r, sat_col] not in losses:
                 losses.append(float(rows.end_s[r, sat_col]))
             # inside the first window, the serving satellite's beams stop covering the terminal
@@ -233,15 +246,22 @@ class NaiveRun(KernelRun):
         if kind == "rlf":
             return ("rlf", when, None)
         link_rows = self.stream.rows(kc, k + 1)
-        old_end, brk, t_new = ex.plan_handover(link_rows, d, d.trigger)
+        plan = ex.plan_handover(link_rows, d, d.trigger, t_c, losses_first, self.rlm)
+        old_end, brk, t_new = plan.old_end, plan.brk, plan.t_new
+        if plan.outcome == "too-late":       # the source failed before the terminal left it
+            yield self.env.timeout(min(plan.t_end, s.duration_s) - self.env.now)
+            return ("rlf", plan.t_end, None) if plan.t_end < s.duration_s else None
         if old_end > when:
             yield self.env.timeout(min(old_end, s.duration_s) - self.env.now)
         if old_end >= s.duration_s:
             ex.close_link(s.duration_s, "end")
             return None
         ex.switch(old_end, brk)
+        if plan.outcome == "failure":        # handover failure at T304 expiry
+            yield self.env.timeout(min(t_new, s.duration_s) - self.env.now)
+            return ("hof", t_new, None) if t_new < s.duration_s else None
         if t_new >= s.duration_s:
             yield self.env.timeout(s.duration_s - self.env.now)
             return ("handover", t_new, None)
         yield self.env.timeout(t_new - self.env.now)
-        return ("handover", t_new, d.target)
+        return ("handover", t_new, ex.next_cell[0])

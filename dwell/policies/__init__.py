@@ -36,7 +36,7 @@ def register(cls: type[Policy]) -> type[Policy]:
 
 
 def _builtin() -> None:
-    from . import a3, cho, geometric, rsrp  # noqa: F401  (modules register their rules)
+    from . import a3, cho, geometric, reselection, rsrp  # noqa: F401  (modules register their rules)
 
 
 def is_plugin(rule: str) -> bool:

@@ -61,6 +61,14 @@ COMMON_KEYS: dict[str, Field] = {
 T311_VALUES_MS = (1000, 3000, 5000, 10000, 15000, 20000, 30000)
 
 
+def _procedure_keys() -> dict[str, Field]:
+    from ..radio.procedure import KEYS
+    return KEYS
+
+
+COMMON_KEYS.update(_procedure_keys())
+
+
 def warn_if_not_in(value_s: float, allowed_ms: tuple[int, ...], source: str, where: str,
                    warn: Callable[[str], None]) -> None:
     ms = value_s * 1000.0
@@ -197,6 +205,7 @@ class Policy:
     KEYS: ClassVar[dict[str, Field]] = {}
     loss_aware: ClassVar[bool] = False
     acts_after_loss: ClassVar[bool] = False   # may decide with the serving link lost (CHO)
+    idle: ClassVar[bool] = False    # idle mode: no radio link monitoring, no handover procedure
     lookahead_rows: int = 0    # rows past a decision the vectorised scan needs to see
 
     def __init__(self, params: dict[str, Any], period_s: float):
@@ -210,6 +219,8 @@ class Policy:
         """Cross-key checks and warnings; raise InputError for bad values."""
         warn_if_not_in(params["t310_s"], T310_VALUES_MS, source, f"{where}.t310_s", warn)
         warn_if_not_in(params["t311_s"], T311_VALUES_MS, source, f"{where}.t311_s", warn)
+        from ..radio.procedure import T304_VALUES_MS
+        warn_if_not_in(params["t304_s"], T304_VALUES_MS, source, f"{where}.t304_s", warn)
 
     @classmethod
     def check_timing(cls, params: dict[str, Any], period_s: float, source: str, where: str,

@@ -68,6 +68,7 @@ def _run_start(cond: np.ndarray, win: np.ndarray) -> np.ndarray:
 class ConditionalHandover(TimeToTriggerRule):
     rule = "cho"
     acts_after_loss = True       # the terminal executes a prepared candidate by itself
+    recovers_by_cho = True       # after a failure, onto a prepared candidate (TS 38.331 5.3.7.3)
     KEYS = {
         "condition": text("d1", choices=CONDITIONS, doc="execution condition"),
         "t1_lead_s": number(30.0, ge(0), doc="T1 starts this long before the serving cell stops"),

@@ -355,6 +355,14 @@ KEYS: dict[str, Field] = {
 RENAMED = {"q_out_snr_db": "q_out_sinr_db", "q_in_snr_db": "q_in_sinr_db"}
 
 
+def _procedure_link_keys() -> dict[str, Field]:
+    from .procedure import LINK_KEYS
+    return LINK_KEYS
+
+
+KEYS.update(_procedure_link_keys())
+
+
 def check_table(raw: dict[str, Any], source: str,
                 warn: Callable[[str], None] | None = None) -> dict[str, Any]:
     """Check the ``[link]`` table against :data:`KEYS` (defaults filled) and cross-check keys.
