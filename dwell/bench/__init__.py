@@ -29,6 +29,8 @@ QUICK = [
     ("kernel", {"duration_s": 10800.0, "satellites": 720, "shadowing_std_db": 0.0,
                 "measurement_noise_db": 0.0, "hysteresis_db": 2.0}),
     ("memory", {"kind": "week-1-terminal", "duration_s": 21600.0}),
+    *[("variant", {"variant": v, "duration_s": 10800.0, "satellites": 720})
+      for v in ("procedure", "beams-19", "interference")],
     ("scale", {"axis": "terminals", "value": 1,
                "base": {"satellites": 720, "terminals": 1, "duration_s": 7200.0}}),
     ("scale", {"axis": "terminals", "value": 8,
@@ -43,6 +45,8 @@ FULL = [
     ("kernel", {"duration_s": 86400.0, "satellites": 1584}),
     ("kernel", {"duration_s": 86400.0, "satellites": 1584, "shadowing_std_db": 0.0,
                 "measurement_noise_db": 0.0, "hysteresis_db": 2.0}),
+    *[("variant", {"variant": v, "duration_s": 86400.0, "satellites": 1584})
+      for v in ("procedure", "beams-19", "interference")],
     ("demo", {"config": "configs/demo.toml"}),
     ("stress-terminals", {"n_terminals": 200, "duration_s": 86400.0}),
     ("memory", {"kind": "week-1-terminal", "duration_s": 7 * 86400.0}),

@@ -34,10 +34,12 @@ def sites(n: int, seed: int = 1) -> list[dict]:
 
 
 def scenario(duration_s: float, constellations: list[dict], terminals: list[dict],
-             policies: list[dict] | None = None, **scen):
+             policies: list[dict] | None = None, link: dict | None = None, **scen):
     from ..io.config import scenario_from_dict
     raw = {"scenario": {"start": START, "duration_s": duration_s, **scen},
            "constellation": constellations, "terminal": terminals}
+    if link:
+        raw["link"] = link
     if policies:
         raw["policy"] = policies
     return scenario_from_dict(raw, "bench", Path("."))
@@ -176,6 +178,51 @@ def case_kernel(duration_s: float, satellites: int, shadowing_std_db: float = 2.
             "peak_mib": peak_mib()}
 
 
+VARIANTS = {
+    # issue 12 target: the handover procedure adds at most 30 % to the A3 case
+    "procedure": ({"procedure": "instant"}, {"procedure": "nr"}, {}, {}, 1.3),
+    # issue 11 targets: 19 earth-moving beams at most 2x one beam; interference at most 3x
+    "beams-19": ({}, {}, {}, {"beams": {"layout": "hex", "rings": 2, "reuse": 3}}, 2.0),
+    "interference": ({}, {}, {"interference": False},
+                     {"beams": {"layout": "hex", "rings": 2, "reuse": 1}}, 3.0),
+}
+
+
+def case_variant(variant: str, duration_s: float, satellites: int) -> dict:
+    """A feature's cost: one terminal's whole run (geometry, measurements, kernel) with the
+    feature against the same run without it.  ``ratio`` is baseline time / feature time, so it
+    meets ``target_ratio`` = 1 / (allowed cost factor) from above like the other cases."""
+    from ..kernel import run_scenario
+
+    pol_base, pol_var, link_base, beams, allowed = VARIANTS[variant]
+    noisy = {"shadowing_std_db": 2.0, "measurement_noise_db": 1.0}
+    spot = {"preset": "s-band-leo600-handheld"}    # spot beams (TR 38.821) for the hex layouts
+    times = {}
+    counts = {}
+    for which in ("base", "variant"):
+        con = shell(satellites)
+        link = dict(noisy)
+        pol = dict(A3_POLICY)
+        if which == "base":            # the single wide beam of the one-beam world, or
+            pol.update(pol_base)       # the same hex layout without the feature
+            link.update(link_base)
+            if variant == "interference":
+                con.update(beams)
+                link.update(spot)
+        else:
+            pol.update(pol_var)
+            con.update(beams)
+            if beams:
+                link.update(spot)
+        scen = scenario(duration_s, [con], sites(1), [pol], link=link)
+        t, (res, _) = _timed(lambda: run_scenario(scen, kernel="fast"))
+        times[which] = t
+        counts[which] = len(res[0].records.handovers)
+    return {"case": f"cost-{variant}", "ours_s": times["variant"], "reference_s": times["base"],
+            "ratio": times["base"] / times["variant"], "target_ratio": 1.0 / allowed,
+            "handovers": counts["variant"], "peak_mib": peak_mib()}
+
+
 def case_demo(config: str) -> dict:
     """Target 4: the whole demo run against one SGP4 pass of its shell on a 60 s grid."""
     import tempfile
@@ -238,7 +285,7 @@ def case_scale(axis: str, value: float, base: dict) -> dict:
             "run_1_terminal_s": t_run, "peak_mib": peak_mib()}
 
 
-CASES = {"passes-one": case_passes_one, "passes-many": case_passes_many, "kernel": case_kernel,
+CASES = {"variant": case_variant, "passes-one": case_passes_one, "passes-many": case_passes_many, "kernel": case_kernel,
          "demo": case_demo, "memory": case_memory, "scale": case_scale,
          "stress-terminals": case_stress_terminals}
 
