@@ -190,3 +190,19 @@ def test_conditional_handover_recovers_onto_a_prepared_candidate():
         # reestablishment_s; tolerance: 10 us for the terminal's altitude and float rounding
         t_sel = math.ceil(t_f / 0.5 - 1e-9) * 0.5
         assert 0.022 + 4 * 0.0020 - 1e-5 < l["start_s"] - t_sel < 0.022 + 4 * 0.00405 + 1e-5
+
+
+def test_rel17_location_and_time_conditions_warn_under_earth_moving_beams():
+    # TS 38.331 5.5.4.15 (condEventD1: fixed reference locations) and 5.3.5.13 (condEventT1)
+    # are specified for (quasi-)earth-fixed cells (TS 38.300 16.14, from memory); with
+    # earth-moving beams the run says they seldom hold.
+    hexes = {**SHELL, "beams": {"layout": "hex", "rings": 2, "reuse": 3}}
+    said: list[str] = []
+    raw = {"scenario": {"start": START, "duration_s": 60.0, "measurement_period_s": 0.5},
+           "constellation": [hexes], "terminal": [TERMINAL],
+           "link": {"preset": "s-band-leo600-handheld"},
+           "policy": [{"name": "p", "rule": "cho", "condition": "d1+a3"},
+                      {"name": "q", "rule": "cho", "condition": "a3"}]}
+    scenario_from_dict(raw, "t.toml", Path("."), warn=said.append)
+    hits = [w for w in said if "earth-fixed" in w]
+    assert len(hits) == 1 and "policy[1]" in hits[0] and "D1" in hits[0]

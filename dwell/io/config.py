@@ -360,6 +360,10 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
         if params.get("rule") == "cho":
             ConditionalHandover.check_release(params, int(scen["release"]), source,
                                               f"policy[{i + 1}]", warn)
+            moving = any(c["beams"]["layout"] != "single" and
+                         c["beams"]["cell_mode"] == "earth-moving" for c in consts)
+            ConditionalHandover.check_cell_mode(params, moving, source, f"policy[{i + 1}]",
+                                                warn)
     from ..policies.base import ping_pong_warning
     msg = ping_pong_warning(pols, float(scen["measurement_period_s"]), source)
     if msg:

@@ -119,6 +119,19 @@ class ConditionalHandover(TimeToTriggerRule):
                      f"condEvent{part.upper()} is a Release {need} condition but "
                      f"scenario.release = {release}; used as given")
 
+    @staticmethod
+    def check_cell_mode(params: dict, earth_moving: bool, source: str, where: str,
+                        warn) -> None:
+        """T1 and D1 (Rel-17) are made for earth-fixed cells: with earth-moving beams a
+        cell lasts seconds, its fixed D1 reference is where it was first measured (far from
+        the terminal) and its stop time comes before T1's lead; say so."""
+        parts = set(params["condition"].split("+")) & {"t1", "d1"}
+        if earth_moving and parts:
+            warn(f"warning: {source}: {where}.condition = {params['condition']!r}: "
+                 f"{' and '.join(sorted(p.upper() for p in parts))} suit earth-fixed cells; "
+                 "with earth-moving beams they seldom hold (a moving reference is D2, "
+                 "release 18)")
+
     def score(self, rows, r):
         return _TARGET[self.params["target"]](rows)[r]
 

@@ -13,7 +13,7 @@ Sweep file (TOML)::
                                      # policy.<name>.<k> ('*' = every policy having the key)
     [[axis]]
     key = "policy"              # which base policies run (by name)
-    values = ["a3", "cho-d1"]
+    values = ["a3", "cho-d2"]
 
     [[axis]]
     key = "scenario.seed"
