@@ -139,6 +139,20 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
     ins = np.ones(t_i.size, bool)
     d = np.flatnonzero(doubt)
     if d.size:
+        # instants whose whole evaluation window lies in a stretch of rows where the cell is
+        # not measured (quality minus infinity, held) are out-of-sync, not in-sync, without
+        # averaging: the bulk of the doubtful instants past a window's end
+        dead = ~np.isfinite(v)
+        rr = np.arange(rows.n)
+        first = np.maximum.accumulate(np.where(~dead, rr, -1)) + 1    # stretch's first row
+        k = np.clip(np.searchsorted(rows.t_s, t_i[d], side="right") - 1, 0, rows.n - 1)
+        m = max(1, int(round(max(timing.evaluation_out_s, timing.evaluation_in_s) / T)))
+        w_start = np.maximum(t_i[d] - T * (m - 1), t_c)
+        gone = dead[k] & (w_start >= rows.t_s[np.minimum(first[k], rows.n - 1)] + 1e-9)
+        oos[d[gone]] = True
+        ins[d[gone]] = False
+        d = d[~gone]
+    if d.size:
         out_db = _window_mean_db(rows, col, t_i[d], timing.evaluation_out_s, T, t_c, e0)
         in_db = _window_mean_db(rows, col, t_i[d], timing.evaluation_in_s, T, t_c, e0)
         oos[d] = out_db < timing.q_out_db
