@@ -412,7 +412,8 @@ class Execution:
         self.link_sat = -1
 
     def plan_handover(self, rows: Rows, d: Decision, trigger: str, t_c: float = 0.0,
-                      e0: float = math.inf, rlm=None) -> "Handover":
+                      e0: float = math.inf, rlm=None, rlf_s: float | None = None,
+                      rlf_known_until_s: float = -math.inf) -> "Handover":
         """Record handover ``d``, planned through the procedure of
         :mod:`dwell.radio.procedure`, and say how it unfolds (see :class:`Handover`).
 
@@ -420,7 +421,9 @@ class Execution:
         decision's row).  A change within the serving satellite re-points nothing.  ``t_c`` and
         ``e0`` are the serving link's start and its window's end (for the source's radio link
         monitoring until the terminal leaves it); the rows the procedure needs beyond the
-        decision are read from the stream."""
+        decision are read from the stream.  A caller that already knows the serving link's
+        first radio link failure up to some instant passes it (``rlf_s``,
+        ``rlf_known_until_s``) and spares the procedure recomputing it."""
         from ..radio.procedure import timeline
 
         hw = self.s.hardware
@@ -474,7 +477,10 @@ class Execution:
             else:
                 old_end, brk = t_leave, t_done - t_leave
             t_new = old_end + brk
-            outcome, t_end = self._outcome(d, to_cell, t_c, e0, t_leave, t_access, t_done, rlm)
+            known = rlf_s if rlf_s is not None and \
+                min(t_leave, self.s.duration_s) <= rlf_known_until_s else None
+            outcome, t_end = self._outcome(d, to_cell, t_c, e0, t_leave, t_access, t_done, rlm,
+                                           known)
             if outcome == "failure":
                 t_new = t_end
                 old_end = min(old_end, max(t_leave, t_access if mbb else t_leave))
@@ -497,21 +503,26 @@ class Execution:
         return Handover(old_end, brk, t_new, outcome, t_end)
 
     def _outcome(self, d: Decision, to_cell: int, t_c: float, e0: float, t_leave: float,
-                 t_access: float, t_done: float, rlm) -> tuple[str, float]:
+                 t_access: float, t_done: float, rlm, known_rlf_s: float | None = None
+                 ) -> tuple[str, float]:
         """too-late (the source fails before the terminal leaves it), failure (the target is not
-        fit for access when it completes, or access outlasts T304) or success, and when."""
+        fit for access when it completes, or access outlasts T304) or success, and when.
+        ``known_rlf_s``: the serving link's first failure, when the caller knows it."""
         from ..radio.measure import row_at_or_after
         from .rlm import indications, quality_db
 
         s = self.s
-        kc = row_at_or_after(t_c, s.period_s)
         k_end = row_at_or_after(min(max(t_leave, t_done), s.duration_s), s.period_s) + 2
-        rows = self.stream.rows(kc, k_end)
         if rlm is not None and t_leave > d.time_s:
-            col = rows.column_of_cell(self.link_cell)
-            t_i, oos, ins = indications(rows, col, t_c, min(t_leave, s.duration_s), t_c, e0, rlm,
-                                        keep_good=s.n311 + 1)
-            t_f = first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
+            if known_rlf_s is None:
+                kc = row_at_or_after(t_c, s.period_s)
+                rows = self.stream.rows(kc, k_end)
+                col = rows.column_of_cell(self.link_cell)
+                t_i, oos, ins = indications(rows, col, t_c, min(t_leave, s.duration_s), t_c, e0,
+                                            rlm, keep_good=s.n311 + 1, keep_bad=s.n310)
+                t_f = first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
+            else:
+                t_f = known_rlf_s
             if d.time_s <= t_f < t_leave:
                 return "too-late", t_f
         t_hof = t_access + s.procedure.t304_s
@@ -519,6 +530,9 @@ class Execution:
             return "success", t_done
         if t_done - t_access > s.procedure.t304_s:
             return "failure", t_hof
+        k_done = row_at_or_after(t_done, s.period_s)
+        k_lo = max(k_done - 2, row_at_or_after(t_c, s.period_s))     # rows still held
+        rows = self.stream.rows(k_lo, min(k_end, self.stream.K))
         col_t = rows.column_of_cell(to_cell)
         r = rows.row_at(t_done)
         if col_t[r] < 0:

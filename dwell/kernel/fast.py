@@ -131,7 +131,7 @@ class FastRun(KernelRun):
             horizon = math.inf if rows.final else float(rows.t_s[-1])
             col = rows.column_of_cell(cell)
             t_i, oos, ins = indications(rows, col, t_c, s.duration_s if rows.final else horizon,
-                                        t_c, e0, self.rlm, keep_good=s.n311 + 1)
+                                        t_c, e0, self.rlm, keep_good=s.n311 + 1, keep_bad=s.n310)
             release = t_c + s.min_dwell_s
             if s.min_dwell_s > 0 and oos.any():
                 release = min(release, float(t_i[int(np.argmax(oos))]))
@@ -170,7 +170,8 @@ class FastRun(KernelRun):
         yield self._wait_until(when)
         if kind == "rlf":
             return ("rlf", when, None)
-        plan = ex.plan_handover(rows, d, d.trigger, t_c, e0, self.rlm)
+        plan = ex.plan_handover(rows, d, d.trigger, t_c, e0, self.rlm, rlf_s=t_f,
+                                rlf_known_until_s=math.inf if rows.final else horizon)
         return (yield from self._execute(plan, when))
 
     def _execute(self, plan, when: float):

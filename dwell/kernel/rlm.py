@@ -78,8 +78,8 @@ def _window_mean_db(rows, col, t_i, window_s, step_s, t_c, e0) -> np.ndarray:
 
 
 def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: float, e0: float,
-                timing: RlmTiming, keep_good: int | None = None
-                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                timing: RlmTiming, keep_good: int | None = None,
+                keep_bad: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Indication instants in [t_from, t_to) (multiples of the interval) and their
     out-of-sync and in-sync flags, for the link that started at ``t_c`` on the serving
     column ``col`` of ``rows``.
@@ -87,7 +87,10 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
     With ``keep_good = n`` only the first n instants of each stretch of plainly good ones are
     returned (all in-sync): enough for N310/N311/T310 (a stretch of n >= N311 in-sync
     indications stops T310 and resets the counts as the whole stretch would), and it never
-    materialises the whole grid of a long link."""
+    materialises the whole grid of a long link.  With ``keep_bad = n`` as well (n >= N310),
+    only the first n instants of each stretch that is plainly out-of-sync (the whole window
+    where the cell is unmeasured, as past a window's end) are returned: T310 starts within
+    them and nothing later in the stretch can stop it."""
     T = timing.indication_s
     i0 = math.ceil(t_from / T - 1e-9)
     i1 = max(i0, math.ceil(t_to / T - 1e-9))
@@ -128,6 +131,8 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
         gap_lo = np.concatenate([[i0], hi])
         gap_hi = np.concatenate([lo, [i1]])
         gap_hi = np.minimum(gap_hi, gap_lo + keep_good)
+        if keep_bad is not None:
+            lo, hi = _subtract(lo, hi, _dead_spans(rows, v, T, w, keep_bad))
         parts = [np.arange(a, b) for a, b in zip(lo.tolist(), hi.tolist())]
         parts += [np.arange(a, b) for a, b in zip(gap_lo.tolist(), gap_hi.tolist()) if b > a]
         idx = np.unique(np.concatenate(parts)) if parts else np.zeros(0, np.int64)
@@ -158,6 +163,51 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
         oos[d] = out_db < timing.q_out_db
         ins[d] = in_db >= timing.q_in_db
     return t_i, oos, ins
+
+
+def _dead_spans(rows: Rows, v: np.ndarray, step_s: float, window_s: float,
+                keep: int) -> list[tuple[int, int]]:
+    """Indication-index ranges lying wholly (with their evaluation window) in a stretch of
+    rows where the cell is unmeasured, less the first ``keep`` instants of each (a margin of
+    one instant at both ends against rounding)."""
+    dead = ~np.isfinite(v)
+    if not dead.any():
+        return []
+    edge = np.diff(np.concatenate([[0], dead.astype(np.int8), [0]]))
+    r0, r1 = np.flatnonzero(edge == 1), np.flatnonzero(edge == -1)
+    m = max(1, int(round(window_s / step_s)))
+    out = []
+    for a_row, b_row in zip(r0.tolist(), r1.tolist()):
+        ts = float(rows.t_s[a_row])
+        a = math.ceil(ts / step_s) + m + 1 + keep
+        b = math.ceil(float(rows.t_s[b_row]) / step_s) - 1 if b_row < rows.n else 2 ** 62
+        if b > a:
+            out.append((a, b))
+    return out
+
+
+def _subtract(lo: np.ndarray, hi: np.ndarray, cut: list[tuple[int, int]]
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """Disjoint sorted ranges [lo, hi) less the ranges ``cut``."""
+    if not cut or lo.size == 0:
+        return lo, hi
+    out_lo, out_hi = [], []
+    for a, b in zip(lo.tolist(), hi.tolist()):
+        pieces = [(a, b)]
+        for c, d in cut:
+            if d <= a or c >= b:
+                continue
+            nxt = []
+            for x, y in pieces:
+                if c > x:
+                    nxt.append((x, min(y, c)))
+                if d < y:
+                    nxt.append((max(x, d), y))
+            pieces = [(x, y) for x, y in nxt if y > x]
+        for x, y in pieces:
+            out_lo.append(x)
+            out_hi.append(y)
+    return np.array(out_lo, dtype=np.int64), np.array(out_hi, dtype=np.int64)
 
 
 def weak_intervals(rows: Rows, col: np.ndarray, t_from: float, t_to: float, e0: float,
