@@ -22,7 +22,8 @@ import pandas as pd
 import tomli_w
 
 from .analysis.records import SiteCoverage, handovers_frame, links_frame, outages_frame
-from .analysis.summary import dwell_ccdf, idle_columns, sinr_ccdf_frame, summarize
+from .analysis.summary import (dwell_ccdf, idle_columns, sinr_ccdf_frame, successful,
+                               summarize)
 from .io.atomic import atomic_dir
 from .io.config import Scenario
 from .io.outputs import passes_frame, visible_frame
@@ -124,7 +125,7 @@ def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, out
         if np.any(s[order][1:] < e[order][:-1] - 1e-9):
             raise InvariantError(f"{who}: overlapping links on aperture {ap}")
     done = [h for h in res.records.handovers if h[23] == "success"]
-    hos = hos[hos["outcome"].astype(str) == "success"] if len(hos) else hos
+    hos = successful(hos)
     targets = np.array([h[2] for h in done], dtype=np.int64)
     times = hos["time_utc"].to_numpy(dtype=float)
     ok = cov.in_window(targets, times) if targets.size else np.zeros(0, bool)

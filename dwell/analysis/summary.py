@@ -63,6 +63,18 @@ def _worst_hour(t: np.ndarray, edges: np.ndarray) -> int:
     return int(per[full].max()) if full.any() else int(per.max(initial=0))
 
 
+def outcomes(handovers: pd.DataFrame) -> pd.Series:
+    """Each handover attempt's outcome as text ("success" for tables without the column)."""
+    if "outcome" not in handovers.columns:
+        return pd.Series(["success"] * len(handovers), index=handovers.index, dtype=object)
+    return handovers["outcome"].astype(str)
+
+
+def successful(handovers: pd.DataFrame) -> pd.DataFrame:
+    """The handovers that happened (not the attempts that failed or came too late)."""
+    return handovers[outcomes(handovers) == "success"]
+
+
 def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFrame,
               visible: pd.DataFrame, budget: dict[str, float], duration_s: float,
               failures: int, preparing: list[tuple], seed: int, sinr=None,
@@ -77,12 +89,10 @@ def summarize(links: pd.DataFrame, handovers: pd.DataFrame, outages: pd.DataFram
     """
     hours = duration_s / 3600.0
     attempts = handovers
-    if "outcome" in handovers.columns and len(handovers):
-        handovers = handovers[handovers["outcome"].astype(str) == "success"]
-    n_failed = int((attempts["outcome"].astype(str) == "failure").sum()) \
-        if "outcome" in attempts.columns and len(attempts) else 0
-    n_late = int((attempts["outcome"].astype(str) == "too-late").sum()) \
-        if "outcome" in attempts.columns and len(attempts) else 0
+    outcome = outcomes(attempts)
+    handovers = successful(attempts)
+    n_failed = int((outcome == "failure").sum())
+    n_late = int((outcome == "too-late").sum())
     n_ho = int(len(handovers))
     ho_lo, ho_hi = poisson_rate_interval(n_ho, hours)
     edges = hour_edges(duration_s)
@@ -195,10 +205,7 @@ def idle_columns(row: dict, idle: bool, handovers: pd.DataFrame) -> dict:
                 "camped_s_per_hour": math.nan, "not_camped_s_per_hour": math.nan,
                 "camping_losses": 0}
     hours = row["duration_h"]
-    done = handovers
-    if len(done) and "outcome" in done.columns:
-        done = done[done["outcome"].astype(str) == "success"]
-    trig = done["trigger"].astype(str) if len(done) else pd.Series([], dtype=str)
+    trig = successful(handovers)["trigger"].astype(str)
     n_res = int((trig == "reselection").sum())
     return {"reselections": n_res, "reselections_per_hour": n_res / hours,
             "selections": int((trig == "selection").sum()),

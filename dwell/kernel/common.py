@@ -389,8 +389,8 @@ class Execution:
         ps = self.s.procedure
         if ps.model == "instant":
             return "cho-recovery", self.s.hardware.interruption_s
-        ow = ps.one_way_s(float(rows.range_km[r, col]), float(rows.elevation_deg[r, col]))
-        return "cho-recovery", ps.access_s + (4.0 if ps.rach else 1.0) * ow
+        return "cho-recovery", ps.access_time_s(float(rows.range_km[r, col]),
+                                                float(rows.elevation_deg[r, col]))
 
     def open_link(self, sat: int, t_s: float, reason: str, cell: int = -1, beam: int = 0) -> None:
         self.link_sat, self.link_start, self.link_reason = sat, t_s, reason
@@ -460,7 +460,7 @@ class Execution:
         mbb = hw.make_before_break and not intra
         src = (float(rows.range_km[r, cf]), float(el[r, cf])) if cf >= 0 else (nan, nan)
         tgt = (float(rows.range_km[r, ct]), float(el[r, ct])) if ct >= 0 else (nan, nan)
-        t_cmd, t_leave, t_access, t_done = timeline(ps, d.time_s, trigger, True, intra, src,
+        t_cmd, t_leave, t_access, t_done = timeline(ps, d.time_s, trigger, intra, src,
                                                     tgt, repoint, mbb)
         outcome, t_end = "success", t_done
         if ps.model == "instant":     # the older model: effect at the decision

@@ -148,9 +148,9 @@ class FastRun(KernelRun):
                 loss = self._loss(rows, rows.column_of(sat), sat, e0, horizon, t_c)
                 if loss is not None:
                     events.append((loss.time_s, PRIORITY["loss"], "loss", loss))
-            t_f = first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
-            if s.idle:       # idle mode: camping is lost where no cell is suitable
-                t_f = camping_lost_s(rows, col, t_c, s.q_rxlevmin_dbm)
+            # idle mode: no radio link failure; camping is lost where no cell is suitable
+            t_f = camping_lost_s(rows, col, t_c, s.q_rxlevmin_dbm) if s.idle else \
+                first_rlf_s(oos, ins, t_i, s.n310, s.n311, s.t310_s)
             if math.isfinite(t_f):
                 events.append((t_f, PRIORITY["rlf"], "rlf", None))
             events.append((s.duration_s, PRIORITY["end"], "end", None))

@@ -33,6 +33,7 @@ import numpy as np
 
 from ..io.schema import Field, between, ge, integer, number, text
 from ..radio.cells import BEAM_STRIDE
+from ..radio.procedure import KEYS as PROCEDURE_KEYS
 
 # 3GPP TS 38.331 value sets (TimeToTrigger; RLF-TimersAndConstants), from the standard's ASN.1
 TTT_VALUES_MS = (0, 40, 64, 80, 100, 128, 160, 256, 320, 480, 512, 640, 1024, 1280, 2560, 5120)
@@ -61,12 +62,7 @@ COMMON_KEYS: dict[str, Field] = {
 T311_VALUES_MS = (1000, 3000, 5000, 10000, 15000, 20000, 30000)
 
 
-def _procedure_keys() -> dict[str, Field]:
-    from ..radio.procedure import KEYS
-    return KEYS
-
-
-COMMON_KEYS.update(_procedure_keys())
+COMMON_KEYS.update(PROCEDURE_KEYS)
 
 
 def warn_if_not_in(value_s: float, allowed_ms: tuple[int, ...], source: str, where: str,

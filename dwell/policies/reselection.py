@@ -149,12 +149,10 @@ class Reselection(Policy):
         m, n = self.m, rows.n
         lost, cond, rank = self._conditions(rows, link)
         not_before = link.start_s + MIN_CAMPED_S
-        t_sel = math.inf
+        sel = None                                       # the first cell selection, if any
         for r in np.flatnonzero(lost).tolist():          # usually none, or one run
-            d = self._selection(rows, r, float(rows.t_s[r]), link)
-            if d is not None:
-                t_sel = d.time_s
-                sel = d
+            sel = self._selection(rows, r, float(rows.t_s[r]), link)
+            if sel is not None:
                 break
         if n > m:
             # held from row a: ranked above at rows a..a+m within one window (sliding, so a
@@ -169,10 +167,10 @@ class Reselection(Policy):
             first = valid.any(axis=1)
             if first.any():
                 a = int(np.argmax(first))
-                if float(tau[a]) < t_sel:
+                if sel is None or float(tau[a]) < sel.time_s:
                     return self._decide(rows, a + m, np.flatnonzero(valid[a]), rank[a + m],
                                         float(tau[a]), "reselection")
-        return sel if math.isfinite(t_sel) else None
+        return sel
 
     # ---- naive reference -------------------------------------------------------------------
     def step(self, rows: Rows, r: int, link: Link) -> Decision | None:

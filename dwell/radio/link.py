@@ -23,8 +23,10 @@ from scipy.special import j1
 from ..io.errors import InputError
 from ..io.schema import Field, between, ge, gt, le, number
 from ..io.schema import check_table as _check_spec
+from ..orbits.frames import SPEED_OF_LIGHT_KM_S
+from .procedure import LINK_KEYS as PROCEDURE_LINK_KEYS
 
-C_KM_S = 299792.458  # speed of light (exact, SI definition)
+C_KM_S = SPEED_OF_LIGHT_KM_S  # speed of light (exact, SI definition)
 KT0_DBM_HZ = -174.0  # thermal noise density kT0 at T0 = 290 K, the usual rounding of -173.98
 _COS_FLOOR = 1e-4  # scan-loss floor: cos(90 deg) -> 40 dB per unit exponent, large but finite
 _X_SMALL = 1e-6  # below this k a sin(theta), 2 J1(x)/x = 1 - x^2/8 is 1 to double precision
@@ -355,12 +357,7 @@ KEYS: dict[str, Field] = {
 RENAMED = {"q_out_snr_db": "q_out_sinr_db", "q_in_snr_db": "q_in_sinr_db"}
 
 
-def _procedure_link_keys() -> dict[str, Field]:
-    from .procedure import LINK_KEYS
-    return LINK_KEYS
-
-
-KEYS.update(_procedure_link_keys())
+KEYS.update(PROCEDURE_LINK_KEYS)   # payload and gateway: the handover procedure's delays
 
 
 def check_table(raw: dict[str, Any], source: str,

@@ -36,8 +36,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..io.schema import Field, between, ge, number, text
+from ..orbits.frames import MEAN_EARTH_RADIUS_KM as R_EARTH_KM
+from ..orbits.frames import SPEED_OF_LIGHT_KM_S as C_KM_S
 from ..orbits.look import slant_range_km
-from .link import C_KM_S
 
 T304_VALUES_MS = (50, 100, 150, 200, 500, 1000, 2000, 10000)   # TS 38.331 T304
 
@@ -106,11 +107,17 @@ class ProcedureSettings:
             return 0.0
         delay = range_km / C_KM_S
         if self.transparent:
-            from ..orbits.frames import MEAN_EARTH_RADIUS_KM as R
+            R = R_EARTH_KM
             e = math.radians(elevation_deg)
             r_sat = math.sqrt(R * R + range_km * range_km + 2 * R * range_km * math.sin(e))
             delay += float(slant_range_km(self.gateway_elevation_deg, r_sat - R)) / C_KM_S
         return delay
+
+    def access_time_s(self, range_km: float, elevation_deg: float) -> float:
+        """Access on a target at this range and elevation: random access (4-step: two round
+        trips) or RACH-less (one uplink), plus the processing."""
+        return self.access_s + (4.0 if self.rach else 1.0) * self.one_way_s(range_km,
+                                                                           elevation_deg)
 
 
 @dataclass
@@ -124,7 +131,7 @@ class Plan:
     t_end: float            # when the outcome is known: t_done, the source's failure, or T304
 
 
-def timeline(ps: ProcedureSettings, t_d: float, trigger: str, reported: bool, intra: bool,
+def timeline(ps: ProcedureSettings, t_d: float, trigger: str, intra: bool,
              src: tuple[float, float], tgt: tuple[float, float], repoint_s: float,
              mbb: bool) -> tuple[float, float, float, float]:
     """(t_cmd, t_leave, access start, access complete) of a decision at ``t_d``; ``src`` and
@@ -134,13 +141,12 @@ def timeline(ps: ProcedureSettings, t_d: float, trigger: str, reported: bool, in
     if ps.model == "instant":
         return t_d, t_d, t_d, t_d
     ow_src = ps.one_way_s(*src)
-    ow_tgt = ps.one_way_s(*tgt) if math.isfinite(tgt[0]) else ow_src
-    if reported and trigger in MEASUREMENT_TRIGGERS:
+    if trigger in MEASUREMENT_TRIGGERS:
         t_cmd = t_d + ow_src + ps.decision_s + (0.0 if intra else ps.preparation_s) + ow_src
     else:                    # scheduled from ephemeris, or executed by the terminal (CHO)
         t_cmd = t_d
     t_leave = t_cmd + ps.rrc_s
-    access = ps.access_s + (4.0 if ps.rach else 1.0) * ow_tgt
+    access = ps.access_time_s(*(tgt if math.isfinite(tgt[0]) else src))
     ready = t_leave if (mbb or intra) else t_leave + repoint_s
     if mbb and not intra:
         ready = max(t_leave, t_d + repoint_s)
