@@ -128,3 +128,37 @@ def test_two_worker_sweep_twice_gives_identical_summaries(tmp_path):
     # the per-run tables too (they feed every later analysis of the sweep)
     assert _contents(one, "_runs/*/*.parquet") == _contents(two, "_runs/*/*.parquet")
     assert len(_contents(one, "_runs/*/*.parquet")) == 8 * 6   # RUN_TABLES per run
+
+
+def test_windows_do_not_depend_on_the_search_group(tmp_path):
+    # Fixed sites share their pass search (dwell.orbits.passes.find_windows_many) in groups; a
+    # run split over workers groups them differently, so each site's windows must be exactly
+    # those it gets searched alone (the contract above: tables identical on one worker and two).
+    from dwell.io.config import scenario_from_dict
+    from dwell.orbits.geometry import Geometry
+    from dwell.orbits.passes import find_windows, find_windows_many
+
+    rng = __import__("numpy").random.default_rng(3)
+    terminals = [{"name": f"t{i}", "lat_deg": float(rng.uniform(-60, 60)),
+                  "lon_deg": float(rng.uniform(-180, 180)),
+                  "min_elevation_deg": float(rng.choice([10.0, 25.0, 40.0]))} for i in range(12)]
+    (tmp_path / "ridge.csv").write_text(
+        "azimuth_deg,elevation_deg\n0,0\n89.99,0\n90,55\n150,55\n150.01,0\n")
+    terminals[3]["mask"] = "ridge.csv"          # one with an obstruction mask
+    raw = {"scenario": {"start": "2027-05-10T00:00:00Z", "duration_s": 21600.0},
+           "constellation": [{"kind": "walker-delta", "name": "grid", "satellites": 480,
+                              "planes": 24, "phasing": 1, "altitude_km": 600.0,
+                              "inclination_deg": 55.0}],
+           "terminal": terminals}
+    scen = scenario_from_dict(raw, "t.toml", tmp_path)
+    geo = Geometry(scen, slots=False)
+    chunk = geo.sky.chunk(0)
+    together = find_windows_many(chunk, geo.sites, geo.earth, geo.max_rate_rad_s, geo.opts,
+                                 [s.los for s in geo.sites])
+    for site, (passes, windows) in zip(geo.sites, together):
+        alone_p, alone_w = find_windows(chunk, site, geo.earth, geo.max_rate_rad_s, geo.opts,
+                                        site.los)
+        for a, b in ((passes, alone_p), (windows, alone_w)):
+            assert len(a) > 0
+            for field in a.__dataclass_fields__:
+                assert (getattr(a, field) == getattr(b, field)).all(), (site.name, field)

@@ -21,7 +21,7 @@ import pandas as pd
 from ..io.config import Scenario
 from ..obstruction.site import Site
 from .frames import EarthOrientation
-from .passes import CAUSE_EDGE, CAUSE_NAMES, PassOptions, Windows, find_windows
+from .passes import CAUSE_EDGE, CAUSE_NAMES, PassOptions, Windows, find_windows_many, is_fixed
 from .sky import Sky
 
 
@@ -109,6 +109,9 @@ class WindowIndex:
         self.closed[ids] |= (w.end_cause != CAUSE_EDGE) | (w.end_s >= duration_s)
 
 
+SITE_GROUP = 16     # fixed sites per pass search: enough to share each evaluation's overhead
+
+
 class Geometry:
     """Chunked visibility of every site of a scenario."""
 
@@ -160,17 +163,30 @@ class Geometry:
 
     def _compute(self, c: int) -> None:
         chunk = self.sky.chunk(c)
-        for k, site in enumerate(self.all_sites):
-            passes, windows = find_windows(chunk, site, self.earth, self.max_rate_rad_s, self.opts,
-                                           site.los)
-            pid, _ = self._pass_ledger[k].assign(passes, chunk.t0_s)
-            wid, slot = self._win_ledger[k].assign(windows, chunk.t0_s)
-            sw = SiteWindows(windows, wid, pid[windows.pass_id] if len(windows) else
-                             np.zeros(0, np.int64), slot, passes, pid)
-            self.tables[k].append(sw)
-            self.index[k].update(wid, windows, self.duration_s)
-            self.pass_index[k].update(pid, passes, self.duration_s)
+        for group in self._site_groups():
+            found = find_windows_many(chunk, [self.all_sites[k] for k in group], self.earth,
+                                      self.max_rate_rad_s, self.opts,
+                                      [self.all_sites[k].los for k in group])
+            for k, (passes, windows) in zip(group, found):
+                self._file(k, chunk, passes, windows)
         self._done = c
+
+    def _site_groups(self) -> list[list[int]]:
+        """Sites searched together: fixed ones in groups of ``SITE_GROUP``, moving ones alone
+        (the windows do not depend on the grouping)."""
+        fixed = [k for k, site in enumerate(self.all_sites) if is_fixed(site)]
+        groups = [fixed[i:i + SITE_GROUP] for i in range(0, len(fixed), SITE_GROUP)]
+        return groups + [[k] for k, site in enumerate(self.all_sites) if not is_fixed(site)]
+
+    def _file(self, k: int, chunk, passes: Windows, windows: Windows) -> None:
+        """Give site k's passes and windows of one chunk their ids and index them."""
+        pid, _ = self._pass_ledger[k].assign(passes, chunk.t0_s)
+        wid, slot = self._win_ledger[k].assign(windows, chunk.t0_s)
+        sw = SiteWindows(windows, wid, pid[windows.pass_id] if len(windows) else
+                         np.zeros(0, np.int64), slot, passes, pid)
+        self.tables[k].append(sw)
+        self.index[k].update(wid, windows, self.duration_s)
+        self.pass_index[k].update(pid, passes, self.duration_s)
 
     def computed_until_s(self) -> float:
         return self.sky.bounds(self._done)[1] if self._done >= 0 else 0.0

@@ -16,6 +16,10 @@ How, and what it costs:
    samples are refined by golden-section search, which finds grazing passes that lie wholly
    between two samples.
 3. Brackets are bisected all at once: about 11 rounds of one vectorised evaluation each.
+Fixed sites are searched in groups (:func:`find_windows_many`): steps 2 and 3 and the peak
+refinement run once per group on (site, satellite) keys, and every refinement counts its
+rounds per bracket, so a site's windows are the same in any group.
+
 4. Inside each pass, obstructions (masks, canyons) are sampled on a global ``mask_step_s`` grid
    and their sign changes bisected the same way; statistical line-of-sight states are drawn on
    their own grid (see :mod:`dwell.obstruction.los`) and cut windows at sample resolution.
@@ -28,8 +32,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..obstruction.motion import Static
 from ..obstruction.site import Site
-from .frames import EarthOrientation
+from .frames import EarthOrientation, rotate_z
 from .look import elevation_deg
 from .sky import SkyChunk
 
@@ -89,13 +94,6 @@ class _Evaluator:
         self.evaluations += t_s.size
         return elevation_deg(r, pos, up)
 
-    def floor_margin(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
-        return self.elevation(sat, t_s) - self.site.floor_deg
-
-    def sine_elevation(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
-        """sin(elevation): smooth through the zenith, where elevation itself has a cusp."""
-        return np.sin(np.radians(self.elevation(sat, t_s)))
-
     def mask_margin(self, sat: np.ndarray, t_s: np.ndarray) -> np.ndarray:
         """Elevation minus the obstruction mask at the satellite's azimuth (floor excluded)."""
         step = self.site.sample_step_s
@@ -103,6 +101,76 @@ class _Evaluator:
         self.evaluations += t_s.size
         az, el = self.site.azimuth_elevation(r, t_s, self.earth)
         return el - self.site.mask_deg(az, t_s)
+
+
+class _GroupEvaluator:
+    """Elevation of (site, satellite, time) triples for a group of sites searched together.
+
+    A triple is keyed ``site * S + sat`` (S satellites in the chunk), so the vectorised
+    searches below see one flat key array and one evaluation serves every site of the group:
+    the per-call cost of an evaluation is paid once per group, not once per site.  A group is
+    either one site of any motion or several fixed sites (their Earth-fixed position and up
+    vector are constants, rotated into TEME per instant exactly as ``Site.position_up`` does).
+    """
+
+    def __init__(self, chunk: SkyChunk, sites: list[Site], earth: EarthOrientation):
+        self.chunk, self.sites, self.earth = chunk, sites, earth
+        self.n_sat = int(chunk.r_km.shape[0])
+        self.floor_deg = np.array([s.floor_deg for s in sites], dtype=float)
+        self.evaluations = 0
+        if len(sites) > 1:
+            if not all(is_fixed(s) for s in sites):
+                raise ValueError("a group of several sites must hold fixed sites only")
+            self._r = np.array([s.motion.ecef(0.0)[0] for s in sites])
+            self._up = np.array([s.motion.ecef(0.0)[2][2] for s in sites])
+
+    def split(self, key: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(site, satellite) of each key."""
+        site = key // self.n_sat
+        return site, key - site * self.n_sat
+
+    def position_up(self, site: np.ndarray | None, t_s: np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray]:
+        """TEME position and up vector of ``site`` (indices into the group, broadcast against
+        ``t_s``; None: every site, shape (sites,) + t_s.shape + (3,))."""
+        if len(self.sites) == 1:
+            pos, up = self.sites[0].position_up(t_s, self.earth)
+            if site is None:
+                return pos[None], up[None]
+            return pos, up
+        g = self.earth.gmst(np.asarray(t_s, dtype=float))
+        c, s = np.cos(g), np.sin(g)
+        if site is None:
+            return (rotate_z(self._r[:, None, :], c[None], s[None]),
+                    rotate_z(self._up[:, None, :], c[None], s[None]))
+        return rotate_z(self._r[site], c, s), rotate_z(self._up[site], c, s)
+
+    def elevation(self, key: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        site, sat = self.split(key)
+        r, _ = self.chunk.states(sat, t_s, velocity=False)
+        pos, up = self.position_up(site, t_s)
+        self.evaluations += t_s.size
+        return elevation_deg(r, pos, up)
+
+    def floor_margin(self, key: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        return self.elevation(key, t_s) - self.floor_deg[key // self.n_sat]
+
+    def sine_elevation(self, key: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        """sin(elevation): smooth through the zenith, where elevation itself has a cusp."""
+        return np.sin(np.radians(self.elevation(key, t_s)))
+
+
+def is_fixed(site: Site) -> bool:
+    """Whether the site never moves (its pass search may be grouped with others)."""
+    return isinstance(site.motion, Static)
+
+
+def _rounds(width: np.ndarray, target: float, shrink: float) -> np.ndarray:
+    """Rounds that take each bracket of ``width`` to ``target`` when one round multiplies it
+    by ``shrink``.  Counted per bracket, so a bracket's result never depends on which other
+    brackets share the call (terminals searched in groups give the same windows as alone)."""
+    ratio = np.maximum(np.asarray(width, dtype=float), target) / target
+    return np.maximum(0, np.ceil(np.log(ratio) / -math.log(shrink) - 1e-12)).astype(np.int64)
 
 
 def bisect(fn, sat: np.ndarray, lo: np.ndarray, hi: np.ndarray, rising: np.ndarray,
@@ -127,13 +195,16 @@ def bisect(fn, sat: np.ndarray, lo: np.ndarray, hi: np.ndarray, rising: np.ndarr
     flo, fhi = np.zeros(lo.size), np.zeros(lo.size)
     lo_known = np.zeros(lo.size, bool)   # ends moved by bisection carry their values
     hi_known = np.zeros(lo.size, bool)
-    width = float(np.max(hi - lo))
-    for _ in range(max(0, math.ceil(math.log2(max(width, secant_below_s) / secant_below_s)))):
-        mid = 0.5 * (lo + hi)
-        fm = g(allsel, mid)
+    rounds = _rounds(hi - lo, secant_below_s, 0.5)
+    for r in range(int(rounds.max())):
+        act = allsel[rounds > r]
+        mid = 0.5 * (lo[act] + hi[act])
+        fm = g(act, mid)
         up = fm > 0.0
-        hi, fhi, hi_known = np.where(up, mid, hi), np.where(up, fm, fhi), hi_known | up
-        lo, flo, lo_known = np.where(up, lo, mid), np.where(up, flo, fm), lo_known | ~up
+        hi[act], fhi[act] = np.where(up, mid, hi[act]), np.where(up, fm, fhi[act])
+        lo[act], flo[act] = np.where(up, lo[act], mid), np.where(up, flo[act], fm)
+        hi_known[act] |= up
+        lo_known[act] |= ~up
     if not lo_known.all():
         flo[~lo_known] = g(allsel[~lo_known], lo[~lo_known])
     if not hi_known.all():
@@ -148,10 +219,12 @@ def bisect(fn, sat: np.ndarray, lo: np.ndarray, hi: np.ndarray, rising: np.ndarr
     bad = np.flatnonzero(~ok)
     if bad.size:
         lo_b, hi_b = lo[bad], hi[bad]
-        for _ in range(max(0, math.ceil(math.log2(float(np.max(hi_b - lo_b)) / tol_s)))):
-            mid = 0.5 * (lo_b + hi_b)
-            up = g(bad, mid) > 0.0
-            hi_b, lo_b = np.where(up, mid, hi_b), np.where(up, lo_b, mid)
+        rounds_b = _rounds(hi_b - lo_b, tol_s, 0.5)
+        for r in range(int(rounds_b.max())):
+            act = np.flatnonzero(rounds_b > r)
+            mid = 0.5 * (lo_b[act] + hi_b[act])
+            up = g(bad[act], mid) > 0.0
+            hi_b[act], lo_b[act] = np.where(up, mid, hi_b[act]), np.where(up, lo_b[act], mid)
         out[bad] = 0.5 * (lo_b + hi_b)
     return out
 
@@ -165,18 +238,20 @@ def golden_max(fn, sat: np.ndarray, lo: np.ndarray, hi: np.ndarray, tol_s: float
     c = b - GOLDEN * (b - a)
     d = a + GOLDEN * (b - a)
     fc, fd = fn(sat, c), fn(sat, d)
-    rounds = max(0, math.ceil(math.log(tol_s / max(float(np.max(b - a)), tol_s)) / math.log(GOLDEN)))
-    for _ in range(rounds):
-        left = fc >= fd                  # maximum lies in [a, d]
-        b = np.where(left, d, b)
-        a = np.where(left, a, c)
-        new_c = b - GOLDEN * (b - a)
-        new_d = a + GOLDEN * (b - a)
+    rounds = _rounds(b - a, tol_s, GOLDEN)
+    for r in range(int(rounds.max())):
+        i = np.flatnonzero(rounds > r)
+        left = fc[i] >= fd[i]                  # maximum lies in [a, d]
+        bi = np.where(left, d[i], b[i])
+        ai = np.where(left, a[i], c[i])
+        new_c = bi - GOLDEN * (bi - ai)
+        new_d = ai + GOLDEN * (bi - ai)
         # reuse the surviving interior point; evaluate the other one
         probe = np.where(left, new_c, new_d)
-        fp = fn(sat, probe)
-        fd, fc = np.where(left, fc, fp), np.where(left, fp, fd)
-        c, d = np.where(left, new_c, d), np.where(left, c, new_d)
+        fp = fn(sat[i], probe)
+        fd[i], fc[i] = np.where(left, fc[i], fp), np.where(left, fp, fd[i])
+        c[i], d[i] = np.where(left, new_c, d[i]), np.where(left, c[i], new_d)
+        a[i], b[i] = ai, bi
     t = np.where(fc >= fd, c, d)
     return t, np.maximum(fc, fd)
 
@@ -244,13 +319,31 @@ def find_windows(chunk: SkyChunk, site: Site, earth: EarthOrientation, max_rate_
     obstructions; with no obstruction they equal the passes.  Intervals open at a chunk edge
     carry ``CAUSE_EDGE`` there and are merged across chunks by the caller.
     """
+    return find_windows_many(chunk, [site], earth, max_rate_rad_s, opts, [los_sampler])[0]
+
+
+def find_windows_many(chunk: SkyChunk, sites: list[Site], earth: EarthOrientation,
+                      max_rate_rad_s: float, opts: PassOptions | None = None,
+                      los_samplers: list | None = None) -> list[tuple[Windows, Windows]]:
+    """:func:`find_windows` for several sites at once: one site of any motion, or any number
+    of fixed sites (:func:`is_fixed`).  Returns ``(passes, windows)`` per site, each exactly
+    what the site searched alone gives.
+
+    Cost: screening is per site; every later step is one vectorised evaluation for the whole
+    group, so grouping removes the per-call overhead that dominates a single site's search
+    (about 60 evaluations per chunk, most of a few hundred samples).
+    """
     opts = opts or PassOptions()
-    ev = _Evaluator(chunk, site, earth)
-    s_c, i_c = _screen(chunk, site, earth, opts, max_rate_rad_s)
+    los_samplers = los_samplers or [None] * len(sites)
+    ev = _GroupEvaluator(chunk, sites, earth)
+    n_sat = ev.n_sat
+    found = [_screen(chunk, site, earth, opts, max_rate_rad_s) for site in sites]
+    s_c = np.concatenate([j * n_sat + sc for j, (sc, _) in enumerate(found)]).astype(np.int64)
+    i_c = np.concatenate([ic for _, ic in found]).astype(np.int64)
     if s_c.size == 0:
-        return Windows.empty(), Windows.empty()
+        return [(Windows.empty(), Windows.empty()) for _ in sites]
     q = max(1, math.ceil(chunk.h_s / opts.sub_step_s))
-    sub = chunk.sub_positions(s_c, i_c, q)                              # (C, q+1, 3)
+    sub = chunk.sub_positions(s_c % n_sat, i_c, q)                      # (C, q+1, 3)
     fine_t = chunk.t0_s + np.arange((chunk.grid_s.size - 1) * q + 1) * (chunk.h_s / q)
     fine_t[-1] = chunk.t1_s
     # consecutive candidate intervals of one satellite share an endpoint: keep it once
@@ -260,11 +353,12 @@ def find_windows(chunk: SkyChunk, site: Site, earth: EarthOrientation, max_rate_
     keep[:, -1] = ~cont_next
     run_of_cand = np.cumsum(np.concatenate([[True], ~cont_next[:-1]])) - 1
     col = (i_c[:, None] * q + np.arange(q + 1)[None, :])[keep]       # fine-grid index
-    sat = np.broadcast_to(s_c[:, None], keep.shape)[keep]
+    sat = np.broadcast_to(s_c[:, None], keep.shape)[keep]              # (site, satellite) keys
     run = np.broadcast_to(run_of_cand[:, None], keep.shape)[keep]
     t = fine_t[col]
-    site_pos, site_up = site.position_up(fine_t, earth)
-    f = elevation_deg(sub[keep], site_pos[col], site_up[col]) - site.floor_deg
+    site_pos, site_up = ev.position_up(None, fine_t)                   # (sites, fine, 3)
+    of = sat // n_sat
+    f = elevation_deg(sub[keep], site_pos[of, col], site_up[of, col]) - ev.floor_deg[of]
     first = np.concatenate([[True], run[1:] != run[:-1]])
     last = np.concatenate([run[1:] != run[:-1], [True]])
     same = ~last[:-1]
@@ -310,17 +404,25 @@ def find_windows(chunk: SkyChunk, site: Site, earth: EarthOrientation, max_rate_
         start_t, end_t, start_run, start_cause, end_cause = _pair_leniently(
             start_t, start_run, start_cause, end_t, end_run, end_cause)
     run_sat = sat[first]
-    p_sat = run_sat[start_run]
+    p_key = run_sat[start_run]
 
     # --- culmination: best sample inside each pass, refined by golden-section
-    culm_t, culm_f = _culminate(ev, t, f, run, p_sat, start_run, start_t, end_t, opts)
-    n = start_t.size
-    passes = Windows(p_sat.astype(np.int64), start_t, end_t, start_cause.astype(np.int8),
-                     end_cause.astype(np.int8), culm_t, culm_f + site.floor_deg,
-                     np.arange(n, dtype=np.int64))
-    if not site.has_obstruction:
-        return passes, passes
-    return passes, _obstructed(ev, passes, site, opts, los_sampler)
+    culm_t, culm_f = _culminate(ev, t, f, ev.floor_deg[of], run, col, fine_t, p_key,
+                                 start_run, start_t, end_t)
+    p_site, p_sat = ev.split(p_key)
+    out = []
+    for j, site in enumerate(sites):      # passes are in key order: site by site
+        m = np.flatnonzero(p_site == j)
+        passes = Windows(p_sat[m].astype(np.int64), start_t[m], end_t[m],
+                         start_cause[m].astype(np.int8), end_cause[m].astype(np.int8),
+                         culm_t[m], culm_f[m] + site.floor_deg, np.arange(m.size, dtype=np.int64))
+        if site.has_obstruction:
+            windows = _obstructed(_Evaluator(chunk, site, earth), passes, site, opts,
+                                  los_samplers[j])
+        else:
+            windows = passes
+        out.append((passes, windows))
+    return out
 
 
 def _pair_leniently(st, sr, sc, et, er, ec):
@@ -344,7 +446,7 @@ PEAK_ROUNDS = 4      # a 60 s bracket to < 1e-4 s on the smooth sin(elevation)
 PEAK_TOL_S = 1e-4    # golden section: 1e-4 s is < 1e-4 deg even at a cusp (< 1 deg/s)
 
 
-def _culminate(ev, t, f, run, p_sat, p_run, p_start, p_end, opts):
+def _culminate(ev, t, f, floor_deg, run, col, fine_t, p_sat, p_run, p_start, p_end):
     """Peak of each pass: the best sub-grid sample inside it, refined.
 
     The refinement maximises sin(elevation), not elevation: near the zenith elevation is
@@ -359,9 +461,12 @@ def _culminate(ev, t, f, run, p_sat, p_run, p_start, p_end, opts):
     if n == 0:
         return np.zeros(0), np.zeros(0)
     # samples strictly inside each pass are contiguous in the flat arrays (runs sorted by time)
-    key_t = run.astype(float) * 1e9 + t
-    a = np.searchsorted(key_t, p_run * 1e9 + p_start, side="right")
-    b = np.searchsorted(key_t, p_run * 1e9 + p_end, side="left")
+    # as integer keys run * (F + 1) + fine-grid index (exact, whatever the number of runs):
+    # a sample is after the start when its grid instant is, before the end likewise
+    span = fine_t.size + 1
+    key = run * span + col
+    a = np.searchsorted(key, p_run * span + np.searchsorted(fine_t, p_start, side="right"))
+    b = np.searchsorted(key, p_run * span + np.searchsorted(fine_t, p_end, side="left"))
     has = b > a
     best = np.full(n, -1, dtype=np.int64)
     if has.any():
@@ -380,7 +485,7 @@ def _culminate(ev, t, f, run, p_sat, p_run, p_start, p_end, opts):
     inner &= (run[bi - 1] == run[bi]) & (run[bi + 1] == run[bi]) & (best >= 0)
     inner &= (f[bi] >= f[bi - 1]) & (f[bi] >= f[bi + 1])
     ct = np.empty(n)
-    sine = np.sin(np.radians(f + ev.site.floor_deg))      # of the samples' elevations
+    sine = np.sin(np.radians(f + floor_deg))          # of the samples' elevations
     ii = np.flatnonzero(inner)
     ct[ii], _ = parabolic_max(ev.sine_elevation, p_sat[ii], t[bi[ii] - 1], t[bi[ii]],
                               t[bi[ii] + 1], sine[bi[ii] - 1], sine[bi[ii]], sine[bi[ii] + 1],
