@@ -16,13 +16,13 @@ How, and what it costs:
    samples are refined by golden-section search, which finds grazing passes that lie wholly
    between two samples.
 3. Brackets are bisected all at once: about 11 rounds of one vectorised evaluation each.
-Fixed sites are searched in groups (:func:`find_windows_many`): steps 2 and 3 and the peak
-refinement run once per group on (site, satellite) keys, and every refinement counts its
-rounds per bracket, so a site's windows are the same in any group.
-
 4. Inside each pass, obstructions (masks, canyons) are sampled on a global ``mask_step_s`` grid
    and their sign changes bisected the same way; statistical line-of-sight states are drawn on
    their own grid (see :mod:`dwell.obstruction.los`) and cut windows at sample resolution.
+
+Fixed sites are searched in groups (:func:`find_windows_many`): steps 2 and 3 and the peak
+refinement run once per group on (site, satellite) keys, and every refinement counts its
+rounds per bracket, so a site's windows are the same in any group.
 """
 
 from __future__ import annotations
