@@ -6,7 +6,9 @@ per-satellite search (>= 8x, events within 0.5 s); many terminals with shared pr
 against the reference looped (>= 50x); the event kernel against the naive per-measurement
 kernel (>= 20x, identical handovers); the whole demo run against one SGP4 pass of its shell on
 a 60 s grid (<= 6x); peak memory of a week-long and of a 10,000-satellite run (< 2 GiB); a
-scaling table with fitted growth exponents.  ``--quick`` runs small versions in about a minute.
+10,000-terminal area over one day (30 min on 2 cores, 4 GiB; a small area in ``--quick``, held
+to its share of that budget); a scaling table with fitted growth exponents, up to 10,000
+terminals.  ``--quick`` runs small versions in a few minutes; the full set takes hours.
 """
 
 from __future__ import annotations
@@ -35,6 +37,7 @@ QUICK = [
                "base": {"satellites": 720, "terminals": 1, "duration_s": 7200.0}}),
     ("scale", {"axis": "terminals", "value": 8,
                "base": {"satellites": 720, "terminals": 1, "duration_s": 7200.0}}),
+    ("area", {"n_terminals": 16, "duration_s": 3600.0}),
 ]
 
 FULL_BASE = {"satellites": 1584, "terminals": 1, "duration_s": 86400.0}
@@ -49,11 +52,13 @@ FULL = [
       for v in ("procedure", "beams-19", "interference")],
     ("demo", {"config": "configs/demo.toml"}),
     ("stress-terminals", {"n_terminals": 200, "duration_s": 86400.0}),
+    ("area", {"n_terminals": 10_000, "duration_s": 86400.0}),
     ("memory", {"kind": "week-1-terminal", "duration_s": 7 * 86400.0}),
     ("memory", {"kind": "10000-satellites", "duration_s": 86400.0}),
 ] + [("scale", {"axis": "satellites", "value": v, "base": FULL_BASE})
      for v in (504, 1584, 5040, 10080)] + \
-    [("scale", {"axis": "terminals", "value": v, "base": FULL_BASE}) for v in (1, 10, 100, 1000)] + \
+    [("scale", {"axis": "terminals", "value": v, "base": FULL_BASE})
+     for v in (1, 10, 100, 1000, 10_000)] + \
     [("scale", {"axis": "duration_s", "value": v, "base": FULL_BASE})
      for v in (3600.0, 21600.0, 86400.0, 7 * 86400.0)]
 
@@ -103,7 +108,8 @@ def format_bench(df: pd.DataFrame, exps: dict) -> str:
         ours, ref, ratio, target = g("ours_s"), g("reference_s"), g("ratio"), g("target_ratio")
         notes = []
         for key in ("max_event_diff_s", "unmatched_events", "same_handovers", "handovers",
-                    "mean_dwell_s", "satellites", "passes_s", "run_1_terminal_s"):
+                    "mean_dwell_s", "satellites", "passes_s", "run_1_terminal_s",
+                    "per_terminal_day_s", "worker_peak_mib"):
             if key in r and r[key] is not None and not (isinstance(r[key], float) and math.isnan(r[key])):
                 notes.append(f"{key}={r[key]:.3g}" if isinstance(r[key], float) else f"{key}={r[key]}")
         name = r["case"] + (f" {r['value']:g}" if "value" in r and g("value") is not None else "")

@@ -34,10 +34,15 @@ def sites(n: int, seed: int = 1) -> list[dict]:
 
 
 def scenario(duration_s: float, constellations: list[dict], terminals: list[dict],
-             policies: list[dict] | None = None, link: dict | None = None, **scen):
+             policies: list[dict] | None = None, link: dict | None = None,
+             areas: list[dict] | None = None, **scen):
     from ..io.config import scenario_from_dict
     raw = {"scenario": {"start": START, "duration_s": duration_s, **scen},
-           "constellation": constellations, "terminal": terminals}
+           "constellation": constellations}
+    if terminals:
+        raw["terminal"] = terminals
+    if areas:
+        raw["area"] = areas
     if link:
         raw["link"] = link
     if policies:
@@ -255,6 +260,41 @@ def case_stress_terminals(n_terminals: int, duration_s: float) -> dict:
             "target_peak_mib": 2048.0}
 
 
+AREA_BUDGET_S = 1800.0        # issue 15: 10,000 terminals over one day in 30 min on 2 cores
+AREA_BUDGET_MIB = 4096.0      # ... and under 4 GiB peak
+AREA_TERMINAL_DAYS = 10_000
+
+
+def case_area(n_terminals: int, duration_s: float, workers: int = 2) -> dict:
+    """An area study: ``n_terminals`` random points of an invented region (0-60 N, 10 W-30 E)
+    under noisy A3 on the bench shell, the whole ``dwell run`` (pass finding, measurements,
+    kernels, tables, load and map tables, files) on ``workers`` processes.  The budget is the
+    issue's 30 minutes for 10,000 terminal-days, scaled to this case's terminal-days (so a
+    smaller case meets its share of it); memory is the larger of the parent's and the
+    largest worker's peak resident size."""
+    import tempfile
+
+    from ..run import execute
+    area = {"name": "bench-plain", "lat_min_deg": 0.0, "lat_max_deg": 60.0,
+            "lon_min_deg": -10.0, "lon_max_deg": 30.0, "count": int(n_terminals),
+            "min_elevation_deg": 25.0}
+    noisy = {"shadowing_std_db": 2.0, "measurement_noise_db": 1.0}
+    scen = scenario(duration_s, [shell()], [], [A3_POLICY], link=noisy, areas=[area])
+    with tempfile.TemporaryDirectory() as tmp:
+        t, tables = _timed(lambda: execute(scen, Path(tmp) / "run", workers=workers))
+        handovers = len(tables.frames["handovers"])
+    days = n_terminals * duration_s / 86400.0
+    budget_s = AREA_BUDGET_S * days / AREA_TERMINAL_DAYS
+    children = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
+    return {"case": f"area-{n_terminals}-terminals", "ours_s": t, "reference_s": budget_s,
+            "ratio": t / budget_s, "target_ratio": 1.0,
+            "ratio_is": "time / its share of 30 min per 10,000 terminal-days (<= target)",
+            "per_terminal_day_s": t * workers / days, "handovers": handovers,
+            "workers": workers, "peak_mib": max(peak_mib(), children),
+            "parent_peak_mib": peak_mib(), "worker_peak_mib": children,
+            "target_peak_mib": AREA_BUDGET_MIB}
+
+
 def case_memory(kind: str, duration_s: float) -> dict:
     """Target 5: peak memory of long or large runs (chunked: must not grow with duration)."""
     from ..kernel import run_scenario
@@ -287,7 +327,7 @@ def case_scale(axis: str, value: float, base: dict) -> dict:
 
 CASES = {"variant": case_variant, "passes-one": case_passes_one, "passes-many": case_passes_many, "kernel": case_kernel,
          "demo": case_demo, "memory": case_memory, "scale": case_scale,
-         "stress-terminals": case_stress_terminals}
+         "stress-terminals": case_stress_terminals, "area": case_area}
 
 if __name__ == "__main__":
     name = sys.argv[1]
