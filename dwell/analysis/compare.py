@@ -460,7 +460,9 @@ def _handover_rows(tables: RunTables, name: str, geo: Geometry, iv: InView, pol:
                                                                 v_term) * 3600.0
         rows.append(_row(name, label, q, sim, lo, hi, ana, IV_POISSON, SRC_NEAREST, geo.text,
                          "exact for the model: changes of the nearest satellite with both above "
-                         "the floor (highest elevation = nearest on one radius)"))
+                         "the floor (highest elevation = nearest on one radius); the simulated "
+                         "count is successful handovers, so a change lost to a radio link "
+                         "failure and re-establishment counts in the formula, not the run"))
     else:
         rows.append(_na(name, label, q, "the exact form needs one isotropic shell "
                                         "(independent satellites)"))
