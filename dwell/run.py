@@ -26,6 +26,7 @@ from .analysis.summary import (dwell_ccdf, idle_columns, sinr_ccdf_frame, succes
                                summarize)
 from .io.atomic import atomic_dir
 from .io.config import Scenario
+from .io.estimate import TERMINAL_BATCH
 from .io.outputs import passes_frame, visible_frame
 from .io.tables import write_frame
 from .io.text import format_table
@@ -184,24 +185,55 @@ def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
     return text
 
 
+# TERMINAL_BATCH terminals run at once in one process: their measurement streams and visibility
+# windows live together (about 7 MB per terminal at 1 s rows), later batches reuse the memory;
+# their tables are joined in terminal order, as the workers' are
 def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: str = "fast",
                check: bool = False, progress: Callable[[float, float], None] | None = None,
-               warn: Callable[[str], None] | None = None, trace: str | None = None) -> RunTables:
+               warn: Callable[[str], None] | None = None, trace: str | None = None,
+               batch: int | None = None) -> RunTables:
     """Run (some of) a scenario's terminals and build their tables (with the measurement
-    trace of terminal ``trace`` when it is among them)."""
-    results, geo = run_scenario(scen, kernel=kernel, terminals=terminals, progress=progress,
-                                warn=warn)
-    tables = build_tables(scen, results, geo, check=check)
-    if trace is not None:
-        mine = [r for r in results if r.terminal == trace]
-        if mine:
-            from .analysis.trace import trace_frame
-            names, shells = scen.constellation.names, [c["name"] for c in scen.constellations]
-            tables.frames["trace"] = trace_frame(
-                scen, geo, mine[0].site_index, mine, lambda c: cell_names(c, names, shells),
-                float(scen.scenario["measurement_period_s"]))
-    geo.close()
-    return tables
+    trace of terminal ``trace`` when it is among them).
+
+    Terminals run ``batch`` (default ``TERMINAL_BATCH``) at a time, each batch with a geometry
+    of its own (SGP4 once per chunk and batch), so memory is bounded by the batch and the
+    tables, not by the number of terminals; every terminal's results depend on nothing but its
+    own index, so the tables are those of one batch holding them all."""
+    chosen = list(range(len(scen.terminals))) if terminals is None else list(terminals)
+    batch = max(1, int(batch or TERMINAL_BATCH))
+    groups = [chosen[i:i + batch] for i in range(0, len(chosen), batch)] or [chosen]
+    seen: set[str] = set()
+
+    def warn_once(msg: str) -> None:        # every batch propagates, so warnings repeat
+        if msg not in seen and warn is not None:
+            warn(msg)
+        seen.add(msg)
+
+    parts = []
+    for g, group in enumerate(groups):
+        def part_progress(t: float, total: float, g: int = g) -> None:
+            progress((g + t / total) * total / len(groups), total)
+        results, geo = run_scenario(scen, kernel=kernel, terminals=group, warn=warn_once,
+                                    progress=part_progress if progress is not None else None)
+        tables = build_tables(scen, results, geo, check=check)
+        if trace is not None:
+            mine = [r for r in results if r.terminal == trace]
+            if mine:
+                from .analysis.trace import trace_frame
+                names, shells = scen.constellation.names, [c["name"] for c in scen.constellations]
+                tables.frames["trace"] = trace_frame(
+                    scen, geo, mine[0].site_index, mine, lambda c: cell_names(c, names, shells),
+                    float(scen.scenario["measurement_period_s"]))
+        geo.close()
+        if len(groups) == 1:
+            return tables
+        parts.append(tables.frames)
+        del results, tables, geo
+    frames = {name: pd.concat([p[name] for p in parts], ignore_index=True) for name in TABLES}
+    for part in parts:
+        if "trace" in part:
+            frames["trace"] = part["trace"]
+    return RunTables(frames, [])
 
 
 _SHARED: dict = {}   # the scenario a forked worker inherits (scenario objects hold SGP4 records)

@@ -95,6 +95,18 @@ def test_worker_count_does_not_change_the_tables(two_runs, scenario):
     assert _contents(single, "*.parquet") == _contents(a, "*.parquet")
 
 
+def test_terminal_batches_do_not_change_the_tables(two_runs, scenario, monkeypatch):
+    # run.py: terminals run TERMINAL_BATCH at a time, each batch with its own geometry, "so the
+    # tables are those of one batch holding them all"; one terminal per batch here
+    from dwell import run
+    from dwell.io.config import load_scenario
+    a, _ = two_runs
+    monkeypatch.setattr(run, "TERMINAL_BATCH", 1)
+    batched = scenario.parent / "run-batches-of-one"
+    run.execute(load_scenario(scenario), batched, workers=1)
+    assert _contents(batched, "*.parquet") == _contents(a, "*.parquet")
+
+
 def test_another_seed_changes_the_noisy_tables(two_runs, scenario):
     # control: with shadowing and measurement noise on, the seed must matter (otherwise the
     # equalities above would hold trivially); pass geometry does not depend on it

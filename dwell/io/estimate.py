@@ -13,9 +13,10 @@ Where the memory goes (the engine's layout, see DEVELOPERS.md):
   their derived arrays (``POINT_B``), plus the sub-grid positions pass finding touches
   (``SUB_B``, a share that grows with the number of terminals);
 - terminals: each measurement stream's rolling buffer, ``4 B`` rows of ``width`` columns of
-  ``FIELD_B`` bytes with ``B = 900 s / measurement_period_s`` rows per block (all streams live
-  at once), and one block's temporaries per (row, satellite in view) pair (``PAIR_B``); a
-  future multi-beam layout multiplies the width, hence ``width_factor``;
+  ``FIELD_B`` bytes with ``B = 900 s / measurement_period_s`` rows per block (the streams of
+  ``TERMINAL_BATCH`` terminals per process live at once), and one block's temporaries per
+  (row, satellite in view) pair (``PAIR_B``); several beams per satellite multiply the
+  width, hence ``width_factor``;
 - geometry tables: ``WINDOW_B`` per visibility window of every terminal, kept for the run;
 - results: ``RESULT_B`` per expected handover (its links, outage and handover rows, the records
   and the frames built from them); street canyons: ``BUILDING_B`` per generated building.
@@ -55,6 +56,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .errors import InputError
+
+TERMINAL_BATCH = 64       # terminals one process runs at once (dwell.run.run_tables)
 
 # ---- memory (bytes) ---------------------------------------------------------------------------
 BASE_B = 200e6            # interpreter, numpy, pandas, pyarrow, scipy, sgp4 loaded
@@ -275,7 +278,10 @@ def estimate_run(scen, *, workers: int = 1, width_factor: float | None = None,
     pairs = 0.0
     if measure:
         widths = [(v + 2.0 * math.sqrt(v) + 1.0) * width_factor for v in in_view]
-        buffers = sum(4 * block_rows * w * FIELD_B for w in widths)
+        # a process runs TERMINAL_BATCH terminals at once (dwell.run.run_tables): only their
+        # buffers live together
+        live = min(1.0, procs * TERMINAL_BATCH / max(1, n_term))
+        buffers = live * sum(4 * block_rows * w * FIELD_B for w in widths)
         temps = procs * block_rows * max(in_view, default=0.0) * width_factor * PAIR_B
         parts.append(Part(f"measurement rows of {n_term} terminals", buffers + temps,
                           ("scenario.measurement_period_s",) + term_keys + count_keys))
@@ -299,7 +305,8 @@ def estimate_run(scen, *, workers: int = 1, width_factor: float | None = None,
                           (f"{where}.canyon.buildings_per_km",
                            f"{where}.canyon.street_length_m")
                           + ((f"{where}.drive.speed_m_s",) if drive else ())))
-    cpu = (CPU_BASE_S + CPU_SAT_S * n_sat + CPU_SAMPLE_S * n_sat * samples
+    batches = max(1, math.ceil(n_term / TERMINAL_BATCH)) if measure else 1   # SGP4 per batch
+    cpu = (CPU_BASE_S + CPU_SAT_S * n_sat + CPU_SAMPLE_S * n_sat * samples * batches
            + CPU_SCREEN_S * n_term * n_sat * samples + CPU_WINDOW_S * n_windows
            + CPU_PAIR_S * pairs + CPU_HANDOVER_S * handovers + CPU_RUN_S * n_term * n_pol
            + 2e-7 * buildings * math.log2(max(2.0, buildings)))
