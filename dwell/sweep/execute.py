@@ -81,8 +81,7 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
     """
     from ..io.config import scenario_from_dict
     from ..io.tables import write_frame
-    from ..kernel import run_scenario
-    from ..run import build_tables, run_toml
+    from ..run import run_tables, run_toml
 
     out = Path(out_dir)
     try:
@@ -101,10 +100,7 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
 
         scen = scenario_from_dict(combined, "sweep task", Path(base_dir), warn=warn,
                                   load_plugins=True)
-        results, geo = run_scenario(scen, warn=warn)
-        tables = build_tables(scen, results, geo, check=True)
-        geo.close()
-        frames = tables.frames
+        frames = run_tables(scen, check=True, warn=warn).frames    # terminals in batches
         with atomic_dir(out / "_tasks" / task_key) as tmp:
             for name in TASK_TABLES:
                 write_frame(frames[name], tmp / f"{name}.parquet", scen)
