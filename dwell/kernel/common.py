@@ -193,8 +193,8 @@ class SinrHistogram:
         if t_s.size == 0:
             return
         h = np.minimum((t_s // 3600.0).astype(np.int64), self.n_hours - 1)
-        b = np.clip(np.floor((sinr_db - self.LO_DB) / self.STEP_DB).astype(np.int64) + 1, 0,
-                    self.n_bins - 1)
+        b = np.minimum(np.maximum(np.floor((sinr_db - self.LO_DB) / self.STEP_DB).astype(np.int64)
+                                  + 1, 0), self.n_bins - 1)
         np.add.at(self.counts, (h, b), 1)
         self.sum_db += float(np.sum(sinr_db))
         self.n += int(sinr_db.size)

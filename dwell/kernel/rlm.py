@@ -52,7 +52,7 @@ def quality_db(rows: Rows, col: np.ndarray, t: np.ndarray, e0: float) -> np.ndar
     """The serving cell's quality (dB) at instants ``t`` (within the rows' span)."""
     t = np.asarray(t, dtype=float)
     v = _row_values(rows, col)
-    k = np.clip(np.searchsorted(rows.t_s, t, side="right") - 1, 0, rows.n - 1)
+    k = np.minimum(np.maximum(np.searchsorted(rows.t_s, t, side="right") - 1, 0), rows.n - 1)
     vk = v[k]
     nxt = np.minimum(k + 1, rows.n - 1)
     has_next = k + 1 < rows.n
@@ -111,8 +111,10 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
     ends = np.append(rows.t_s[1:], np.inf)
     lo = np.ceil(rows.t_s[bad] / T - 1e-9)
     hi = np.ceil((np.minimum(ends[bad], t_to) + w) / T - 1e-9)
-    lo = np.clip(lo, i0, i1).astype(np.int64)
-    hi = np.clip(hi, i0, i1).astype(np.int64)
+    # np.minimum/maximum, not np.clip: the same values without clip's per-call overhead
+    # (this runs once per policy scan)
+    lo = np.minimum(np.maximum(lo, i0), i1).astype(np.int64)
+    hi = np.minimum(np.maximum(hi, i0), i1).astype(np.int64)
     if keep_good is None:
         idx = np.arange(i0, i1)
         doubt = np.zeros(idx.size, bool)
@@ -135,7 +137,9 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
             lo, hi = _subtract(lo, hi, _dead_spans(rows, v, T, w, keep_bad))
         parts = [np.arange(a, b) for a, b in zip(lo.tolist(), hi.tolist())]
         parts += [np.arange(a, b) for a, b in zip(gap_lo.tolist(), gap_hi.tolist()) if b > a]
-        idx = np.unique(np.concatenate(parts)) if parts else np.zeros(0, np.int64)
+        # the doubtful ranges are merged and the gaps lie between them: all disjoint, so a
+        # sort gives the union (np.unique would hash every instant for nothing)
+        idx = np.sort(np.concatenate(parts)) if parts else np.zeros(0, np.int64)
         doubt = np.zeros(idx.size, bool)
         for a, b in zip(lo.tolist(), hi.tolist()):
             doubt[np.searchsorted(idx, a):np.searchsorted(idx, b)] = True
@@ -150,7 +154,7 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
         dead = ~np.isfinite(v)
         rr = np.arange(rows.n)
         first = np.maximum.accumulate(np.where(~dead, rr, -1)) + 1    # stretch's first row
-        k = np.clip(np.searchsorted(rows.t_s, t_i[d], side="right") - 1, 0, rows.n - 1)
+        k = np.minimum(np.maximum(np.searchsorted(rows.t_s, t_i[d], side="right") - 1, 0), rows.n - 1)
         m = max(1, int(round(max(timing.evaluation_out_s, timing.evaluation_in_s) / T)))
         w_start = np.maximum(t_i[d] - T * (m - 1), t_c)
         gone = dead[k] & (w_start >= rows.t_s[np.minimum(first[k], rows.n - 1)] + 1e-9)

@@ -70,6 +70,20 @@ def _hermite_rate_weights(s: np.ndarray) -> np.ndarray:
                      -12 * s2 + 28 * s3 - 15 * s4, 0.5 * (3 * s2 - 8 * s3 + 5 * s4)], axis=-1)
 
 
+def _segments_of(key: np.ndarray, cost: int) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct (satellite, interval) keys and each sample's segment: runs of equal keys when
+    the samples come grouped (measurement rows come window by window, so a sort is wasted
+    work), else np.unique.  A key split over several runs only computes its table twice."""
+    if key.size:
+        change = np.empty(key.size, bool)
+        change[0] = True
+        np.not_equal(key[1:], key[:-1], out=change[1:])
+        n_runs = int(np.count_nonzero(change))
+        if n_runs * cost <= 2 * key.size:       # a table per run costs `cost` rows
+            return key[change], np.cumsum(change) - 1
+    return np.unique(key, return_inverse=True)
+
+
 @dataclass
 class SkyChunk:
     """Satellite TEME states on the (evenly spaced) grid of one time chunk [t0_s, t1_s]."""
@@ -151,7 +165,7 @@ class SkyChunk:
         if off.mean() > 0.5:     # mostly off the grid (bisection probes): per-sample path
             return fallback(sat, t_s)
         n_int = self.grid_s.size - 1
-        seg, inv = np.unique(sat.astype(np.int64) * n_int + i, return_inverse=True)
+        seg, inv = _segments_of(sat.astype(np.int64) * n_int + i, q + 1)
         s_sat, s_int = seg // n_int, seg % n_int
         frac = np.arange(q + 1) / q
         w = _hermite_rate_weights(frac) / self.h_s if rate else _hermite_weights(frac)  # (q+1, 6)
