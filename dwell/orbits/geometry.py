@@ -85,15 +85,18 @@ class _Ledger:
 
 
 class WindowIndex:
-    """Whole-window facts by global id (start, end, satellite, closed), growing as chunks come."""
+    """Whole-window facts by global id (start, end, satellite, closed and, for obstructed
+    windows, the floor pass each lies in), growing as chunks come."""
 
     def __init__(self):
         self.start_s = np.zeros(0)
         self.end_s = np.zeros(0)
         self.sat = np.zeros(0, dtype=np.int64)
         self.closed = np.zeros(0, dtype=bool)
+        self.pass_id = np.zeros(0, dtype=np.int64)     # -1 where none was given
 
-    def update(self, ids: np.ndarray, w: Windows, duration_s: float) -> None:
+    def update(self, ids: np.ndarray, w: Windows, duration_s: float,
+               pass_ids: np.ndarray | None = None) -> None:
         if ids.size == 0:
             return
         n = int(ids.max()) + 1
@@ -103,10 +106,13 @@ class WindowIndex:
             self.end_s = np.concatenate([self.end_s, np.full(grow - self.end_s.size, -np.inf)])
             self.sat = np.concatenate([self.sat, np.full(grow - self.sat.size, -1)])
             self.closed = np.concatenate([self.closed, np.zeros(grow - self.closed.size, bool)])
+            self.pass_id = np.concatenate([self.pass_id, np.full(grow - self.pass_id.size, -1)])
         np.minimum.at(self.start_s, ids, w.start_s)
         np.maximum.at(self.end_s, ids, w.end_s)
         self.sat[ids] = w.sat
         self.closed[ids] |= (w.end_cause != CAUSE_EDGE) | (w.end_s >= duration_s)
+        if pass_ids is not None:
+            self.pass_id[ids] = pass_ids
 
 
 SITE_GROUP = 16     # fixed sites per pass search: enough to share each evaluation's overhead
@@ -185,7 +191,7 @@ class Geometry:
         sw = SiteWindows(windows, wid, pid[windows.pass_id] if len(windows) else
                          np.zeros(0, np.int64), slot, passes, pid)
         self.tables[k].append(sw)
-        self.index[k].update(wid, windows, self.duration_s)
+        self.index[k].update(wid, windows, self.duration_s, sw.pass_gid)
         self.pass_index[k].update(pid, passes, self.duration_s)
 
     def computed_until_s(self) -> float:

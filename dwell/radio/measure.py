@@ -159,7 +159,6 @@ class MeasurementStream:
         self._carry_shadow: dict[int, float] = {}
         self._carry_nlos: dict[int, float] = {}
         self._runs = _RunLedger()
-        self._pass_of = np.zeros(0, dtype=np.int64)   # window id -> floor pass id (-1: unseen)
         self.samples = 0
         self.uncovered: list[tuple[float, float]] = []   # satellites in view, no cell measured
 
@@ -262,13 +261,6 @@ class MeasurementStream:
         cat = [np.concatenate(x) for x in (sat, start, end, wid, pid)]
         geo.ensure_closed(self.k_site, np.unique(cat[3]))
         geo.ensure_passes_closed(self.k_site, np.unique(cat[4]))
-        if cat[3].size:
-            need = int(cat[3].max()) + 1
-            if need > self._pass_of.size:      # window ids grow with time: extend by doubling
-                grown = np.full(max(need, 2 * self._pass_of.size), -1, dtype=np.int64)
-                grown[:self._pass_of.size] = self._pass_of
-                self._pass_of = grown
-            self._pass_of[cat[3]] = cat[4]
         return cat[:4]
 
     def _build(self, b: int) -> None:
@@ -476,7 +468,7 @@ class MeasurementStream:
         # a cell's service ends with its satellite's window, or earlier at a cell switch
         blk["cell_end_s"][r, c] = np.fmin(idx.end_s[vals["pair_win"]], vals["until_s"])
         # the floor pass's end: when ephemeris says the satellite leaves (no obstruction)
-        passes = self._pass_of[vals["pair_win"]]
+        passes = idx.pass_id[vals["pair_win"]]
         blk["pass_end_s"][r, c] = self.geo.pass_index[self.k_site].end_s[passes] \
             if passes.size else np.zeros(0)
         blk["rsrp_dbm"][r, c] = filt
