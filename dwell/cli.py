@@ -379,8 +379,8 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
         _warn(msg)
 
     def fits(scen, n_policies: int) -> None:      # each task alone must fit in memory
-        refuse_if_too_big(estimate_run(scen, n_policies=n_policies), plan.source, force=force,
-                          what="this run's task")
+        refuse_if_too_big(estimate_run(scen, n_policies=n_policies, streamed=False),
+                          plan.source, force=force, what="this run's task")
 
     # every run checked as dwell run would, before the first starts (plug-ins only run for real)
     check_runs(plan, load_plugins=not dry_run, warn=_once(_warn), each=fits)

@@ -8,7 +8,9 @@ by ``[[area]]`` tables, :mod:`dwell.analysis.population`), ``load``, ``load_peak
 ``load_bursts`` (handovers per second into and out of each satellite and cell,
 :mod:`dwell.analysis.load`).
 The folder is built under a temporary name and renamed into place when complete, so it is
-either whole or absent.
+either whole or absent.  A run of more than one batch of terminals (or on several processes)
+stores the per-event tables part by part as batches finish (:mod:`dwell.io.parts`) and builds
+the load tables a range of elements at a time, so memory does not grow with the population.
 """
 
 from __future__ import annotations
@@ -28,7 +30,8 @@ from .io.atomic import atomic_dir
 from .io.config import Scenario
 from .io.estimate import TERMINAL_BATCH
 from .io.outputs import passes_frame, visible_frame
-from .io.tables import write_frame
+from .io.parts import FrameSource, PartStore, TableParts
+from .io.tables import arrow_columns, provenance, write_frame, write_tables
 from .io.text import format_table
 from .kernel import RunResult, run_scenario
 from .radio.cells import cell_names
@@ -37,6 +40,8 @@ TABLES = ("passes", "links", "handovers", "outages", "visible", "summary", "dwel
           "sinr_ccdf")
 # built from every terminal's tables at once (after the terminal groups are joined)
 POPULATION_TABLES = ("map", "areas", "load", "load_peaks", "load_bursts")
+# the per-event tables: stored part by part when a run has several batches of terminals
+STREAMED = tuple(t for t in TABLES if t != "summary")
 RUN_TOML_HEAD = "# Fully resolved configuration of this run"
 # what dwell writes into a run folder: the run itself, then `dwell compare`, `dwell plot`
 # and `dwell report`
@@ -52,8 +57,36 @@ class InvariantError(AssertionError):
 
 @dataclass
 class RunTables:
+    """A run's tables by name (times in scenario seconds) and, for a run of one batch in one
+    process, its per-terminal results.  After a run whose tables were stored part by part,
+    ``frames`` reads the per-event tables back from the run folder when first asked for
+    (:class:`FolderFrames`)."""
     frames: dict[str, pd.DataFrame]
     results: list[RunResult]
+
+
+class FolderFrames(dict):
+    """Frames of a written run folder, read when first asked for: ``*_utc`` columns back in
+    scenario seconds (rounded to the microsecond, as the files hold them)."""
+
+    def __init__(self, folder: str | Path, epoch, frames: dict[str, pd.DataFrame]):
+        super().__init__(frames)
+        self.folder, self.epoch = Path(folder), epoch
+
+    def __contains__(self, name) -> bool:
+        return super().__contains__(name) or (self.folder / f"{name}.parquet").is_file()
+
+    def __missing__(self, name: str) -> pd.DataFrame:
+        path = self.folder / f"{name}.parquet"
+        if not path.is_file():
+            raise KeyError(name)
+        df = pd.read_parquet(path)
+        start = pd.Timestamp(self.epoch.start)
+        for c in df.columns:
+            if c.endswith("_utc") and str(df[c].dtype).startswith("datetime64"):
+                df[c] = (df[c] - start) / pd.Timedelta(seconds=1)
+        self[name] = df
+        return df
 
 
 def build_tables(scen: Scenario, results: list[RunResult], geo, *, check: bool = False
@@ -136,23 +169,16 @@ def check_invariants(res: RunResult, links: pd.DataFrame, hos: pd.DataFrame, out
         raise InvariantError(f"{who}: summary counts differ from the tables")
 
 
-def population_tables(scen: Scenario, frames: dict[str, pd.DataFrame]) -> dict[str, pd.DataFrame]:
-    """The ``map``, ``areas`` and load tables of a whole run from its joined tables (they do
-    not depend on how the terminals were split).  Cost: a group-by over the handovers."""
-    from .analysis.load import load_tables
+def map_and_areas(scen: Scenario, summary: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    """The ``map`` and ``areas`` tables of a whole run from its summary."""
     from .analysis.population import areas_frame, map_frame
-    from .io.areas import terminal_weights
 
     names = scen.terminal_names()
     pop = scen.population
     first = pop.first_index if pop is not None else len(names)
-    policies = [p["name"] for p in scen.policies]
-    mp = map_frame(frames["summary"], pop, first, names)
-    out = {"map": mp, "areas": areas_frame(mp, [a["name"] for a in scen.areas], policies)}
-    weights = dict(zip(names, terminal_weights(scen).tolist()))
-    out.update(load_tables(frames["handovers"], weights, policies,
-                           float(scen.scenario["duration_s"])))
-    return out
+    mp = map_frame(summary, pop, first, names)
+    return {"map": mp, "areas": areas_frame(mp, [a["name"] for a in scen.areas],
+                                            [p["name"] for p in scen.policies])}
 
 
 def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
@@ -191,14 +217,17 @@ def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
 def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: str = "fast",
                check: bool = False, progress: Callable[[float, float], None] | None = None,
                warn: Callable[[str], None] | None = None, trace: str | None = None,
-               batch: int | None = None) -> RunTables:
+               batch: int | None = None, parts: PartStore | None = None) -> RunTables:
     """Run (some of) a scenario's terminals and build their tables (with the measurement
     trace of terminal ``trace`` when it is among them).
 
     Terminals run ``batch`` (default ``TERMINAL_BATCH``) at a time, each batch with a geometry
     of its own (SGP4 once per chunk and batch), so memory is bounded by the batch and the
     tables, not by the number of terminals; every terminal's results depend on nothing but its
-    own index, so the tables are those of one batch holding them all."""
+    own index, so the tables are those of one batch holding them all.  With ``parts`` each
+    batch's per-event tables (``STREAMED``) are stored there as it finishes and only the
+    summary (and the trace) are returned, so nothing grows with the number of terminals but
+    the summary."""
     chosen = list(range(len(scen.terminals))) if terminals is None else list(terminals)
     batch = max(1, int(batch or TERMINAL_BATCH))
     groups = [chosen[i:i + batch] for i in range(0, len(chosen), batch)] or [chosen]
@@ -209,7 +238,7 @@ def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: st
             warn(msg)
         seen.add(msg)
 
-    parts = []
+    kept = []
     for g, group in enumerate(groups):
         def part_progress(t: float, total: float, g: int = g) -> None:
             progress((g + t / total) * total / len(groups), total)
@@ -225,22 +254,33 @@ def run_tables(scen: Scenario, terminals: list[int] | None = None, *, kernel: st
                     scen, geo, mine[0].site_index, mine, lambda c: cell_names(c, names, shells),
                     float(scen.scenario["measurement_period_s"]))
         geo.close()
-        if len(groups) == 1:
+        if parts is not None:
+            parts.add({name: tables.frames.pop(name) for name in STREAMED}, group[0] if group
+                      else 0)
+        elif len(groups) == 1:
             return tables
-        parts.append(tables.frames)
+        kept.append(tables.frames)
         del results, tables, geo
-    frames = {name: pd.concat([p[name] for p in parts], ignore_index=True) for name in TABLES}
-    for part in parts:
-        if "trace" in part:
-            frames["trace"] = part["trace"]
-    return RunTables(frames, [])
+    return RunTables(_concatenated(kept), [])
+
+
+def _concatenated(frames: list[dict[str, pd.DataFrame]]) -> dict[str, pd.DataFrame]:
+    """The tables of terminal groups (in terminal order) as one run's; the trace from the
+    group holding it."""
+    out = {name: pd.concat([f[name] for f in frames], ignore_index=True)
+           for name in TABLES if frames and name in frames[0]}
+    for f in frames:
+        if "trace" in f:
+            out["trace"] = f["trace"]
+    return out
 
 
 _SHARED: dict = {}   # the scenario a forked worker inherits (scenario objects hold SGP4 records)
 
 
-def _worker(args) -> tuple[dict[str, pd.DataFrame], list[str]]:
+def _worker(args) -> tuple[tuple[dict[str, pd.DataFrame], list[str]], list]:
     index, terminals, kernel, check, trace = args
+    store = _SHARED["stores"][index]      # inherited open: parts go to the parent's file
     messages: list[str] = []      # handed back for the parent to print: a worker's stderr
     done_s = _SHARED.get("done_s")  # shared with the parent: simulated seconds per worker
 
@@ -248,8 +288,8 @@ def _worker(args) -> tuple[dict[str, pd.DataFrame], list[str]]:
         done_s[index] = t
     frames = run_tables(_SHARED["scen"], terminals, kernel=kernel, check=check,  # may be a copy
                         warn=messages.append, progress=note if done_s is not None else None,
-                        trace=trace).frames
-    return frames, messages
+                        trace=trace, parts=store).frames
+    return (frames, messages), store.parts
 
 
 def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check: bool = False,
@@ -264,52 +304,76 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     nothing but its own index, so the tables are identical to a one-process run.  With
     ``executor = "dask"`` the groups are tasks on a dask.distributed cluster (the scheduler at
     ``scheduler``, or a local cluster of ``workers`` processes), with the same tables.
+    A run of one batch of terminals in one process keeps its tables in memory; any other
+    stores the per-event tables part by part in the folder being built (see the module
+    docstring) and returns them as :class:`FolderFrames`.
     """
     n = len(scen.terminals)
     workers = max(1, min(workers, n))
-    if executor == "dask":
-        tables = _run_dask(scen, kernel, check, progress, warn, workers, trace, scheduler)
-    elif workers == 1:
+    if executor != "dask" and workers == 1 and n <= TERMINAL_BATCH:
         tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn,
                             trace=trace)
-    else:
-        from .io.errors import RunFailed
-        from .io.processes import each_in_a_process
-        bounds = np.linspace(0, n, workers + 1).round().astype(int)
-        groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
-        import multiprocessing as mp
-        ctx = mp.get_context("fork")
-        _SHARED["scen"] = scen
-        _SHARED["done_s"] = ctx.Array("d", len(groups), lock=False) if progress else None
-        parts: list = [None] * len(groups)
-        duration_s = float(scen.scenario["duration_s"])
+        tables.frames.update(write_run_folder(scen, tables, out_dir))
+        return tables
+    parts = TableParts(Path(out_dir).absolute().parent)   # anonymous files: see io/parts.py
+    try:
+        if executor == "dask":
+            frames = _run_dask(scen, kernel, check, progress, warn, workers, trace, scheduler,
+                               parts)
+        elif workers == 1:
+            frames = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn,
+                                trace=trace, parts=parts.store()).frames
+        else:
+            frames = _run_forked(scen, kernel, check, progress, warn, workers, trace, parts)
+        with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
+            small = _write_tables(scen, tmp, frames, parts, out_dir, keep_load=False)
+    finally:
+        parts.close()
+    return RunTables(FolderFrames(out_dir, scen.epoch, {**frames, **small}), [])
 
-        def tick() -> None:
-            progress(sum(_SHARED["done_s"]) / len(groups), duration_s)
 
-        outcomes = each_in_a_process(_worker, [(i, g, kernel, check, trace)
-                                               for i, g in enumerate(groups)], len(groups),
-                                     tick if progress is not None else None)
-        try:       # each group in a forked process that dies with this one
-            for res in outcomes:
-                if res.error is not None:
-                    raise res.error
-                if not res.ok:
-                    names = [scen.terminals[k]["name"] for k in groups[res.index]]
-                    raise RunFailed(f"terminals {names[0]}..{names[-1]}: {res.died}; "
-                                    "nothing was written")
-                parts[res.index] = res.value
-        finally:
-            outcomes.close()         # kills the groups still running, if any
-            _SHARED.clear()
-        tables = _joined(parts, warn)
-    tables.frames.update(population_tables(scen, tables.frames))
-    write_run_folder(scen, tables, out_dir)
-    return tables
+def _run_forked(scen: Scenario, kernel: str, check: bool,
+                progress: Callable[[float, float], None] | None,
+                warn: Callable[[str], None] | None, workers: int, trace: str | None,
+                parts: TableParts) -> dict[str, pd.DataFrame]:
+    """Contiguous terminal groups in forked processes that die with this one; each stores its
+    per-event tables in ``parts`` and hands back its summary (and the trace)."""
+    from .io.errors import RunFailed
+    from .io.processes import each_in_a_process
+    n = len(scen.terminals)
+    bounds = np.linspace(0, n, workers + 1).round().astype(int)
+    groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+    import multiprocessing as mp
+    ctx = mp.get_context("fork")
+    _SHARED["scen"] = scen
+    _SHARED["stores"] = [parts.store() for _ in groups]
+    _SHARED["done_s"] = ctx.Array("d", len(groups), lock=False) if progress else None
+    results: list = [None] * len(groups)
+    duration_s = float(scen.scenario["duration_s"])
+
+    def tick() -> None:
+        progress(sum(_SHARED["done_s"]) / len(groups), duration_s)
+
+    outcomes = each_in_a_process(_worker, [(i, g, kernel, check, trace)
+                                           for i, g in enumerate(groups)], len(groups),
+                                 tick if progress is not None else None)
+    try:
+        for res in outcomes:
+            if res.error is not None:
+                raise res.error
+            if not res.ok:
+                names = [scen.terminals[k]["name"] for k in groups[res.index]]
+                raise RunFailed(f"terminals {names[0]}..{names[-1]}: {res.died}; "
+                                "nothing was written")
+            results[res.index], parts.stores[res.index].parts = res.value
+    finally:
+        outcomes.close()         # kills the groups still running, if any
+        _SHARED.clear()
+    return _joined(results, warn)
 
 
 def _joined(parts: list[tuple[dict[str, pd.DataFrame], list[str]]],
-            warn: Callable[[str], None] | None) -> RunTables:
+            warn: Callable[[str], None] | None) -> dict[str, pd.DataFrame]:
     """The tables of terminal groups (in terminal order) joined into one run's; each group's
     warnings reported once (every group propagates, so they repeat)."""
     seen: set[str] = set()
@@ -318,12 +382,7 @@ def _joined(parts: list[tuple[dict[str, pd.DataFrame], list[str]]],
             if msg not in seen and warn is not None:
                 warn(msg)
             seen.add(msg)
-    frames = {name: pd.concat([p[0][name] for p in parts], ignore_index=True)
-              for name in TABLES}
-    for part, _ in parts:               # the trace comes from the group holding it
-        if "trace" in part:
-            frames["trace"] = part["trace"]
-    return RunTables(frames, [])
+    return _concatenated([p[0] for p in parts])
 
 
 _DASK_SCENARIOS: dict[str, Scenario] = {}     # per dask worker process: the last scenario built
@@ -372,37 +431,45 @@ def dask_client(workers: int, scheduler: str | None):
 def _run_dask(scen: Scenario, kernel: str, check: bool,
               progress: Callable[[float, float], None] | None,
               warn: Callable[[str], None] | None, workers: int, trace: str | None,
-              scheduler: str | None) -> RunTables:
+              scheduler: str | None, parts: TableParts) -> dict[str, pd.DataFrame]:
     """Terminal groups as tasks on a dask.distributed cluster, joined in terminal order (so
-    the tables equal a local run's).  Two groups per worker thread keep the workers busy
-    while a slow group finishes; each group propagates the constellation itself."""
+    the tables equal a local run's).  At least two groups per worker thread keep the workers
+    busy while a slow group finishes, and none holds more than ``TERMINAL_BATCH`` terminals:
+    each group's per-event tables come back to this process, which stores them in ``parts``
+    as they arrive (workers need not share its file system).  Each group propagates the
+    constellation itself."""
     from .io.errors import InputError, RunFailed
 
     client, cluster = dask_client(workers, scheduler)
+    store = parts.store()
     try:
         from dask.distributed import as_completed
         threads = max(1, sum(client.nthreads().values()))
         n = len(scen.terminals)
-        bounds = np.linspace(0, n, min(n, 2 * threads) + 1).round().astype(int)
+        count = min(n, max(2 * threads, -(-n // TERMINAL_BATCH)))
+        bounds = np.linspace(0, n, count + 1).round().astype(int)
         groups = [list(range(a, b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
         resolved = scen.resolved()
         args = (resolved, scen.source, str(scen.base_dir), scen.config_hash())
         futures = [client.submit(_dask_group, *args, g, kernel, check, trace, pure=False)
                    for g in groups]
         index = {f.key: i for i, f in enumerate(futures)}
-        parts: list = [None] * len(groups)
+        results: list = [None] * len(groups)
         duration_s = float(scen.scenario["duration_s"])
         done = 0
         for fut in as_completed(futures):
             i = index[fut.key]
             try:
-                parts[i] = fut.result()
+                frames, messages = fut.result()
             except InputError:
                 raise
             except Exception as exc:      # a lost worker (dask retries, then gives up), a bug
                 names = [scen.terminals[k]["name"] for k in groups[i]]
                 raise RunFailed(f"terminals {names[0]}..{names[-1]}: {type(exc).__name__}: "
                                 f"{exc}; nothing was written") from exc
+            store.add({name: frames.pop(name) for name in STREAMED}, groups[i][0])
+            results[i] = (frames, messages)
+            fut.release()
             done += 1
             if progress is not None:
                 progress(duration_s * done / len(groups), duration_s)
@@ -410,7 +477,7 @@ def _run_dask(scen: Scenario, kernel: str, check: bool,
         client.close()
         if cluster is not None:
             cluster.close()
-    return _joined(parts, warn)
+    return _joined(results, warn)
 
 
 def run_folder_problem(folder: str | Path) -> str | None:
@@ -454,15 +521,57 @@ def _not_ours(name: Path) -> str:
             "(choose another -o)")
 
 
-def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path) -> None:
-    if any(name not in tables.frames for name in POPULATION_TABLES):
-        tables.frames.update(population_tables(scen, tables.frames))
+def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path
+                     ) -> dict[str, pd.DataFrame]:
+    """Write a run's tables held in memory as its folder, atomically; returns the population
+    tables it built (``map``, ``areas`` and the load tables)."""
     with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
-        for name in TABLES + POPULATION_TABLES + (("trace",) if "trace" in tables.frames
-                                                  else ()):
-            write_frame(tables.frames[name], tmp / f"{name}.parquet", scen)
-        (tmp / "run.toml").write_text(run_toml(scen, out_dir))
-        (tmp / "summary.txt").write_text(summary_text(scen, tables.frames["summary"]))
+        return _write_tables(scen, tmp, tables.frames, FrameSource(tables.frames), out_dir,
+                             keep_load=True)
+
+
+def _write_tables(scen: Scenario, tmp: Path, frames: dict[str, pd.DataFrame],
+                  source: TableParts | FrameSource, out_dir: str | Path, *,
+                  keep_load: bool) -> dict[str, pd.DataFrame]:
+    """Write every table of a run into the folder ``tmp`` (to be renamed ``out_dir``): the
+    per-event tables from ``source``, the summary (and trace) from ``frames``, and the
+    population tables built here (the load tables from the handovers, a range of elements at
+    a time); returns those built (``load`` only with ``keep_load``, else it is only written).
+    The bytes do not depend on how the rows were split into parts."""
+    from .analysis.load import HANDOVER_COLUMNS, bursts_frame, load_passes
+    from .io.areas import terminal_weights
+
+    meta = provenance(scen)
+    for name in STREAMED:
+        write_tables(source.tables(name), tmp / f"{name}.parquet", epoch=scen.epoch,
+                     metadata=meta, schema=source.schema(name))
+    built = map_and_areas(scen, frames["summary"])
+    weights = dict(zip(scen.terminal_names(), terminal_weights(scen).tolist()))
+    policies = [p["name"] for p in scen.policies]
+    loads, peaks, bursts = [], [], []
+
+    def load_rows():
+        for load, peak, burst in load_passes(
+                lambda: source.tables("handovers", list(HANDOVER_COLUMNS)), weights, policies,
+                float(scen.scenario["duration_s"])):
+            peaks.append(peak)
+            bursts.append(burst)
+            if keep_load:
+                loads.append(load)
+            yield arrow_columns(load)
+    write_tables(load_rows(), tmp / "load.parquet", epoch=scen.epoch, metadata=meta)
+    built["load_peaks"] = pd.concat(peaks, ignore_index=True)
+    built["load_bursts"] = bursts_frame(bursts, policies)
+    if keep_load:
+        built["load"] = pd.concat(loads, ignore_index=True)
+    for name in ("summary", "trace"):
+        if name in frames:
+            write_frame(frames[name], tmp / f"{name}.parquet", scen)
+    for name in ("map", "areas", "load_peaks", "load_bursts"):
+        write_frame(built[name], tmp / f"{name}.parquet", scen)
+    (tmp / "run.toml").write_text(run_toml(scen, out_dir))
+    (tmp / "summary.txt").write_text(summary_text(scen, frames["summary"]))
+    return built
 
 
 def run_toml(scen: Scenario, folder: str | Path | None = None) -> str:

@@ -31,13 +31,19 @@ Sums over a level's elements give the population's totals: at the satellite leve
 and ``out_of`` each add up to the weighted satellite changes, ``within`` to the weighted beam
 changes; at the cell level ``into`` and ``out_of`` each add up to all weighted handovers.
 
-Cost: a sort of 2 to 4 events per handover (pandas group-by).
+The tables are built a range of elements at a time (:func:`load_passes`), so a run's
+handovers need not be in memory at once.  Cost: a sort of 2 to 4 events per handover, one
+pass over the handovers per range of about ``EVENTS_PER_PASS`` events.
 """
 
 from __future__ import annotations
 
+from typing import Callable, Iterable, Iterator
+
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 LEVELS = ("satellite", "cell")
 DIRECTIONS = ("into", "out_of", "within")
@@ -52,33 +58,48 @@ BURST_COLUMNS = ("policy", "level", "direction", "burst_terminals", "bursts", "h
                  "weight")
 
 
-def _values(column) -> np.ndarray:
-    return np.asarray(pd.Series(column).astype(object).to_numpy(), dtype=object)
+HANDOVER_COLUMNS = ("terminal", "policy", "time_utc", "scope", "from_satellite", "to_satellite",
+                    "from_cell", "to_cell")
+EVENTS_PER_PASS = 2_000_000   # events held at once; more make another pass over the handovers
+KIND_DIRECTIONS = (0, 1, 2, 0, 1)   # into, out_of, within (satellite level), into, out_of (cell)
 
 
-def _sorted_codes(columns: list) -> tuple[list[np.ndarray], np.ndarray]:
-    """Integer codes of the values of several text columns into their sorted common names:
-    one hash pass over the values, a sort of the distinct names only."""
-    values = [_values(c) for c in columns]
-    codes, uniq = pd.factorize(np.concatenate(values) if values else np.zeros(0, object))
-    uniq = np.asarray(uniq, dtype=object)
-    order = np.argsort(uniq.astype(str), kind="stable")
-    rank = np.empty(order.size, np.int64)
-    rank[order] = np.arange(order.size)
-    codes = rank[codes] if codes.size else codes.astype(np.int64)
-    bounds = np.cumsum([0] + [v.size for v in values])
-    return [codes[a:b] for a, b in zip(bounds[:-1], bounds[1:])], uniq[order]
+def _dictionary(table: pa.Table, name: str) -> tuple[list, np.ndarray]:
+    """(distinct values, each row's index into them) of a text or dictionary column."""
+    arr = table.column(name).combine_chunks()
+    if not pa.types.is_dictionary(arr.type):
+        arr = pc.dictionary_encode(arr)
+    if arr.null_count:
+        raise ValueError(f"handovers without a value in column {name}")
+    return arr.dictionary.to_pylist(), arr.indices.to_numpy().astype(np.int64)
 
 
-def _lookup(column, table: dict) -> np.ndarray:
-    """``table[value]`` for every value of a column (one look-up per distinct value)."""
-    codes, uniq = pd.factorize(_values(column))
-    mapped = np.array([table[str(u)] for u in uniq])
-    return mapped[codes] if codes.size else mapped[:0]
+def _mapped(table: pa.Table, name: str, lookup) -> np.ndarray:
+    """``lookup(value)`` for every row of a column (one call per distinct value)."""
+    values, idx = _dictionary(table, name)
+    mapped = np.array([lookup(str(v)) for v in values])
+    return mapped[idx] if idx.size else mapped[:0]
 
 
 def _categories(codes: np.ndarray, names) -> pd.Categorical:
     return pd.Categorical.from_codes(codes, categories=pd.Index(list(names), dtype=object))
+
+
+def _events(table: pa.Table, code_of: dict, weight_of: dict, policy_of: dict, n_el: int):
+    """The events of a chunk of handovers, by kind (see the module docstring): for each of
+    the five kinds (``KIND_DIRECTIONS``: satellite into, out of and within, cell into and
+    out of), the element key
+    ``(policy * 2 + level) * n_el + element``, the second and the weight of each event."""
+    n = table.num_rows
+    weight = _mapped(table, "terminal", weight_of.__getitem__).astype(float)
+    pol = _mapped(table, "policy", policy_of.__getitem__).astype(np.int64)
+    sec = np.floor(table.column("time_utc").to_numpy().astype(float)).astype(np.int64)
+    inter = _mapped(table, "scope", lambda v: v == "inter-satellite").astype(bool)
+    fs, ts, fc, tc = (_mapped(table, c, code_of.__getitem__).astype(np.int64) for c in (
+        "from_satellite", "to_satellite", "from_cell", "to_cell"))
+    every = np.ones(n, bool)
+    kinds = [(inter, 0, ts), (inter, 0, fs), (~inter, 0, ts), (every, 1, tc), (every, 1, fc)]
+    return [((pol[r] * 2 + lv) * n_el + el[r], sec[r], weight[r]) for r, lv, el in kinds]
 
 
 def load_tables(handovers: pd.DataFrame, terminal_weight: dict[str, float], policies: list[str],
@@ -89,28 +110,86 @@ def load_tables(handovers: pd.DataFrame, terminal_weight: dict[str, float], poli
     order.  Rows are sorted by policy (in that order), level, element name and second, so the
     tables depend on the handovers only, not on how the run was split.  Cost: one hash pass
     over the names and one sort of the events' integer keys, O(handovers log handovers)."""
-    n = len(handovers)
-    weight = _lookup(handovers["terminal"], terminal_weight).astype(float)
-    pol = _lookup(handovers["policy"], {p: i for i, p in enumerate(policies)})
-    pol = pol.astype(np.int64)
-    sec = np.floor(handovers["time_utc"].to_numpy(dtype=float)).astype(np.int64)
-    inter = _values(handovers["scope"]) == "inter-satellite"
-    (fs, ts, fc, tc), names = _sorted_codes([handovers[c] for c in (
-        "from_satellite", "to_satellite", "from_cell", "to_cell")])
-    every = np.ones(n, bool)
-    parts = [  # (rows, level, element, direction): see the module docstring
-        (inter, 0, ts, 0), (inter, 0, fs, 1), (~inter, 0, ts, 2),
-        (every, 1, tc, 0), (every, 1, fc, 1),
-    ]
-    n_sec = int(sec.max()) + 1 if n else 1
-    n_el = max(1, names.size)
-    if float(max(1, len(policies))) * 2 * n_el * n_sec >= 2.0 ** 62:
+    from ..io.tables import arrow_columns
+    table = arrow_columns(handovers[list(HANDOVER_COLUMNS)])
+    loads, peaks, bursts = [], [], []
+    for load, peak, burst in load_passes(lambda: [table], terminal_weight, policies, duration_s):
+        loads.append(load)
+        peaks.append(peak)
+        bursts.append(burst)
+    return {"load": pd.concat(loads, ignore_index=True),
+            "load_peaks": pd.concat(peaks, ignore_index=True),
+            "load_bursts": bursts_frame(bursts, policies)}
+
+
+def load_passes(chunks: Callable[[], Iterable[pa.Table]], terminal_weight: dict[str, float],
+                policies: list[str], duration_s: float
+                ) -> Iterator[tuple[pd.DataFrame, pd.DataFrame, dict]]:
+    """The load tables of the handovers in ``chunks()`` (Arrow tables with
+    ``HANDOVER_COLUMNS``, in run order, ``time_utc`` in scenario seconds), a range of elements
+    at a time: yields (``load`` rows, ``load_peaks`` rows, burst counts for
+    :func:`bursts_frame`) per range, in the tables' row order.  An element's rows come from
+    one range and its events are summed in run order, so the rows do not depend on the
+    ranges; the ranges hold up to ``EVENTS_PER_PASS`` events each (an element with more
+    gets a range of its own), so memory is bounded by that, not by the run.  Cost: two passes
+    over the chunks, and one per range when there is more than one."""
+    names: set = set()
+    n = events = 0
+    last_sec = -1
+    for table in chunks():
+        for c in ("from_satellite", "to_satellite", "from_cell", "to_cell"):
+            values, idx = _dictionary(table, c)
+            names.update(str(values[i]) for i in np.unique(idx))
+        if table.num_rows:
+            t = table.column("time_utc").to_numpy().astype(float)
+            last_sec = max(last_sec, int(np.floor(t.max())))
+            inter = int(np.sum(_mapped(table, "scope", lambda v: v == "inter-satellite")))
+            events += 2 * table.num_rows + 2 * inter + (table.num_rows - inter)
+        n += table.num_rows
+    ordered = sorted(names)
+    code_of = {name: i for i, name in enumerate(ordered)}
+    policy_of = {p: i for i, p in enumerate(policies)}
+    n_sec = last_sec + 1 if n else 1
+    n_el = max(1, len(ordered))
+    n_keys = max(1, len(policies)) * 2 * n_el
+    if float(n_keys) * n_sec >= 2.0 ** 62:
         raise ValueError("too many distinct (policy, element, second) keys for the load table")
-    # one integer per (policy, level, element, second), ordered like the tuple
-    key = np.concatenate([((pol[r] * 2 + lv) * n_el + el[r]) * n_sec + sec[r]
-                          for r, lv, el, _ in parts])
-    direction = np.concatenate([np.full(int(r.sum()), d, np.int8) for r, _, _, d in parts])
-    w = np.concatenate([weight[r] for r, _, _, _ in parts])
+    ranges = [(0, n_keys)]
+    if events > EVENTS_PER_PASS:     # element ranges of about EVENTS_PER_PASS events each
+        count = np.zeros(n_keys, np.int64)
+        for table in chunks():
+            for ek, _, _ in _events(table, code_of, terminal_weight, policy_of, n_el):
+                count += np.bincount(ek, minlength=n_keys)
+        ranges, lo, held = [], 0, 0
+        for k in range(n_keys):
+            if held and held + count[k] > EVENTS_PER_PASS:
+                ranges.append((lo, k))
+                lo, held = k, 0
+            held += int(count[k])
+        ranges.append((lo, n_keys))
+    for lo, hi in ranges:
+        kinds: list[list] = [[] for _ in range(5)]
+        for table in chunks():
+            for j, (ek, sec, w) in enumerate(_events(table, code_of, terminal_weight,
+                                                        policy_of, n_el)):
+                if len(ranges) > 1:
+                    m = (ek >= lo) & (ek < hi)
+                    ek, sec, w = ek[m], sec[m], w[m]
+                kinds[j].append((ek, sec, w))
+        # kind by kind, each in run order: the order the sums of one table would take
+        flat = [x for kind in kinds for x in kind]
+        key = np.concatenate([ek * n_sec + sec for ek, sec, _ in flat] or [np.zeros(0, np.int64)])
+        w = np.concatenate([w for _, _, w in flat] or [np.zeros(0)])
+        direction = np.concatenate(
+            [np.full(ek.size, d, np.int8) for d, kind in zip(KIND_DIRECTIONS, kinds)
+             for ek, _, _ in kind] or [np.zeros(0, np.int8)])
+        yield _range_tables(key, direction, w, n_sec, n_el, ordered, policies, duration_s)
+
+
+def _range_tables(key: np.ndarray, direction: np.ndarray, w: np.ndarray, n_sec: int,
+                  n_el: int, names: list[str], policies: list[str], duration_s: float
+                  ) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
+    """``load`` and ``load_peaks`` rows and the burst counts of one range's events."""
     uniq, inv = np.unique(key, return_inverse=True)
     inv = inv.reshape(-1)
     per: dict[str, np.ndarray] = {}
@@ -135,8 +214,7 @@ def load_tables(handovers: pd.DataFrame, terminal_weight: dict[str, float], poli
     new = np.ones(uniq.size, bool)
     new[1:] = element_key[1:] != element_key[:-1]
     start = np.flatnonzero(new)
-    return {"load": load, "load_peaks": _peaks(load, per, total, start, duration_s),
-            "load_bursts": _bursts(p, lv, per, policies)}
+    return load, _peaks(load, per, total, start, duration_s), _burst_counts(p, lv, per)
 
 
 def _peaks(load: pd.DataFrame, per: dict[str, np.ndarray], total: np.ndarray,
@@ -167,9 +245,8 @@ def _peaks(load: pd.DataFrame, per: dict[str, np.ndarray], total: np.ndarray,
     return out
 
 
-def _bursts(p: np.ndarray, lv: np.ndarray, per: dict[str, np.ndarray], policies: list[str]
-            ) -> pd.DataFrame:
-    """Burst-size distribution from the per-second rows' policy and level codes."""
+def _burst_counts(p: np.ndarray, lv: np.ndarray, per: dict[str, np.ndarray]) -> dict:
+    """Bursts per (policy, level, direction, size) of one range's per-second rows."""
     keys, ws = [], []
     top = max(1, int(max((per[f"{d}_terminals"].max(initial=0) for d in DIRECTIONS))) + 1)
     for j, d in enumerate(DIRECTIONS):
@@ -180,14 +257,29 @@ def _bursts(p: np.ndarray, lv: np.ndarray, per: dict[str, np.ndarray], policies:
     key, w = np.concatenate(keys), np.concatenate(ws)
     uniq, inv = np.unique(key, return_inverse=True)
     inv = inv.reshape(-1)
-    size = uniq % top
     rest = uniq // top
+    return {"size": uniq % top, "group": rest,     # group: (policy * 2 + level) * 3 + direction
+            "bursts": np.bincount(inv, minlength=uniq.size).astype(np.int64),
+            "weight": np.bincount(inv, weights=w, minlength=uniq.size)}
+
+
+def bursts_frame(counts: list[dict], policies: list[str]) -> pd.DataFrame:
+    """``load_bursts`` from the burst counts of every range (summed where ranges share a
+    (policy, level, direction, size))."""
+    size = np.concatenate([c["size"] for c in counts]).astype(np.int64)
+    group = np.concatenate([c["group"] for c in counts]).astype(np.int64)
+    top = int(size.max(initial=0)) + 1
+    uniq, inv = np.unique(group * top + size, return_inverse=True)
+    inv = inv.reshape(-1)
+    size, rest = uniq % top, uniq // top
     d = rest % len(DIRECTIONS)
     lvl = (rest // len(DIRECTIONS)) % 2
     pol = rest // (2 * len(DIRECTIONS))
-    bursts = np.bincount(inv, minlength=uniq.size).astype(np.int64)
+    bursts = np.bincount(inv, weights=np.concatenate([c["bursts"] for c in counts]),
+                         minlength=uniq.size).astype(np.int64)
     return pd.DataFrame({
         "policy": _categories(pol, policies), "level": _categories(lvl, LEVELS),
         "direction": _categories(d, DIRECTIONS), "burst_terminals": size.astype(np.int64),
         "bursts": bursts, "handovers": bursts * size.astype(np.int64),
-        "weight": np.bincount(inv, weights=w, minlength=uniq.size)})
+        "weight": np.bincount(inv, weights=np.concatenate([c["weight"] for c in counts]),
+                              minlength=uniq.size)})

@@ -31,6 +31,9 @@ CAUSES = ("no-satellite", "obstruction", "no-cell", "weak-signal", "failure", "r
           "switching")
 
 
+_NO_TEXT = np.zeros(0, dtype=object)   # an empty text column (an empty list would be float)
+
+
 def links_frame(res: RunResult, names: list[str], cell_names=None,
                 cov: "SiteCoverage | None" = None) -> pd.DataFrame:
     """One row per serving interval.  ``cell_names`` maps cell ids to readable names (see
@@ -45,7 +48,8 @@ def links_frame(res: RunResult, names: list[str], cell_names=None,
     cells = df["cell"].to_numpy(dtype=np.int64)
     out = pd.DataFrame({
         "terminal": res.terminal, "policy": res.policy,
-        "satellite": np.asarray(names, dtype=object)[df["sat"].to_numpy(dtype=int)] if len(df) else [],
+        "satellite": np.asarray(names, dtype=object)[df["sat"].to_numpy(dtype=int)] if len(df)
+        else _NO_TEXT,
         "cell": cell_names(cells) if cell_names is not None else cells.astype(str),
         "beam": df["beam"].to_numpy(dtype=np.int32),
         "aperture": df["aperture"].to_numpy(dtype=np.int32),
@@ -84,9 +88,10 @@ def handovers_frame(res: RunResult, names: list[str], frequency_ghz: float = 2.0
         pp[b] = (tc[b] == fc[a]) & (t[b] - t[a] <= res.settings.ping_pong_window_s)
     return pd.DataFrame({
         "terminal": res.terminal, "policy": res.policy, "time_utc": t,
-        "from_satellite": names_arr[frm] if len(df) else [],
-        "to_satellite": names_arr[to] if len(df) else [],
-        "from_cell": name(fc) if len(df) else [], "to_cell": name(tc) if len(df) else [],
+        "from_satellite": names_arr[frm] if len(df) else _NO_TEXT,
+        "to_satellite": names_arr[to] if len(df) else _NO_TEXT,
+        "from_cell": name(fc) if len(df) else _NO_TEXT,
+        "to_cell": name(tc) if len(df) else _NO_TEXT,
         "from_beam": df["from_beam"].to_numpy(dtype=np.int32),
         "to_beam": df["to_beam"].to_numpy(dtype=np.int32),
         "scope": df["scope"].to_numpy(dtype=object),

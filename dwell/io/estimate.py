@@ -17,9 +17,13 @@ Where the memory goes (the engine's layout, see DEVELOPERS.md):
   ``TERMINAL_BATCH`` terminals per process live at once), and one block's temporaries per
   (row, satellite in view) pair (``PAIR_B``); several beams per satellite multiply the
   width, hence ``width_factor``;
-- geometry tables: ``WINDOW_B`` per visibility window of every terminal, kept for the run;
-- results: ``RESULT_B`` per expected handover (its links, outage and handover rows, the records
-  and the frames built from them); street canyons: ``BUILDING_B`` per generated building.
+- geometry tables: ``WINDOW_B`` per visibility window of the terminals a process runs at once
+  (every terminal's for ``dwell passes``);
+- results: ``RESULT_B`` per expected handover of the terminals a process runs at once (its
+  links, outage and handover rows, the records and the frames built from them; the batches'
+  tables are stored part by part as they finish), ``SUMMARY_B`` per terminal and policy, and
+  ``LOAD_EVENT_B`` per event of one range of the load tables (at most
+  ``LOAD_EVENTS_PER_PASS``); street canyons: ``BUILDING_B`` per generated building.
 
 How many satellites are in view and how often passes come are estimated for a uniform (isotropic)
 shell: a satellite at radius r is above elevation e within the Earth central angle
@@ -69,6 +73,9 @@ FIELD_B = 96.0            # 11 float/int fields and the time of one buffer cell
 PAIR_B = 320.0            # temporaries per (row, satellite) pair of a block being built
 WINDOW_B = 240.0          # a window and its pass, in the chunk tables and the window index
 RESULT_B = 1.0e3          # per expected handover: its rows in links/handovers/outages
+SUMMARY_B = 4.0e3         # per terminal and policy: its summary and map rows (kept for the run)
+LOAD_EVENT_B = 200.0      # per load event of one range: keys, sums, sort and the rows built
+LOAD_EVENTS_PER_PASS = 2_000_000   # dwell.analysis.load.EVENTS_PER_PASS
 BUILDING_B = 100.0        # a canyon building: start, end, height and sorting temporaries
 
 # ---- CPU time (seconds) -----------------------------------------------------------------------
@@ -222,12 +229,13 @@ def beam_factors(scen) -> tuple[float, float]:
 
 def estimate_run(scen, *, workers: int = 1, width_factor: float | None = None,
                  kernel: str = "fast", n_policies: int | None = None,
-                 measure: bool = True) -> Estimate:
+                 measure: bool = True, streamed: bool = True) -> Estimate:
     """Estimate a checked scenario (built or not) run with ``workers`` processes.
 
     ``n_policies`` overrides the scenario's policy count (a sweep task runs many);
     ``measure=False`` estimates geometry only (``dwell passes``).  ``width_factor`` multiplies
-    the columns of a measurement row (several beams per satellite would).  Cost: a few
+    the columns of a measurement row (several beams per satellite would).  ``streamed=False``
+    is a run that keeps every batch's tables in memory (a sweep task).  Cost: a few
     arithmetic operations per table (element files are counted line by line).
     """
     width_beams, handover_beams = beam_factors(scen)
@@ -273,22 +281,28 @@ def estimate_run(scen, *, workers: int = 1, width_factor: float | None = None,
     parts.append(Part(f"{n_sat:,.0f} satellites, propagated in chunks", procs * n_sat * (
         SAT_B + min(n_chunks, CHUNKS_KEPT) * points * (POINT_B + touched * SUB_B)),
         count_keys + ("scenario.chunk_s", "scenario.propagation_step_s")))
-    parts.append(Part("visibility windows", n_windows * WINDOW_B,
+    # a run's batches each have a geometry of their own (dwell.run.run_tables)
+    live = min(1.0, procs * TERMINAL_BATCH / max(1, n_term)) if measure else 1.0
+    parts.append(Part("visibility windows", live * n_windows * WINDOW_B,
                       count_keys + ("scenario.duration_s",) + term_keys))
     pairs = 0.0
     if measure:
         widths = [(v + 2.0 * math.sqrt(v) + 1.0) * width_factor for v in in_view]
         # a process runs TERMINAL_BATCH terminals at once (dwell.run.run_tables): only their
         # buffers live together
-        live = min(1.0, procs * TERMINAL_BATCH / max(1, n_term))
         buffers = live * sum(4 * block_rows * w * FIELD_B for w in widths)
         temps = procs * block_rows * max(in_view, default=0.0) * width_factor * PAIR_B
         parts.append(Part(f"measurement rows of {n_term} terminals", buffers + temps,
                           ("scenario.measurement_period_s",) + term_keys + count_keys))
         pairs = sum(rows * v * width_factor for v in in_view)
     if measure and n_pol:
-        parts.append(Part(f"results of {n_term} terminals x {n_pol} policies",
-                          (1 + (procs > 1)) * max(handovers, n_term * n_pol) * RESULT_B,
+        # one batch in one process holds its tables; otherwise each process holds a batch's
+        # and stores them part by part (dwell.run), the parent keeps the summaries and builds
+        # the load tables a range of at most LOAD_EVENTS_PER_PASS events at a time
+        kept = live if streamed else (1.0 + (procs > 1))
+        held = (kept * max(handovers, n_term * n_pol) * RESULT_B + n_term * n_pol * SUMMARY_B
+                + min(4.0 * handovers, LOAD_EVENTS_PER_PASS) * LOAD_EVENT_B)
+        parts.append(Part(f"results of {n_term} terminals x {n_pol} policies", held,
                           ("scenario.duration_s",) + term_keys + ("[[policy]]",) + count_keys))
     buildings = 0.0
     for i, t in enumerate(terms):

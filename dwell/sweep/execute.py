@@ -172,7 +172,8 @@ def task_estimates(plan: SweepPlan) -> dict[str, Any]:
     for task, runs in plan.tasks.items():
         scen = scenario_from_dict(copy.deepcopy(runs[0].scenario), plan.source, plan.base_dir,
                                   build=False)
-        out[task] = estimate_run(scen, n_policies=sum(len(r.scenario["policy"]) for r in runs))
+        out[task] = estimate_run(scen, n_policies=sum(len(r.scenario["policy"]) for r in runs),
+                                 streamed=False)
     return out
 
 
