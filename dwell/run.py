@@ -80,11 +80,12 @@ class FolderFrames(dict):
         path = self.folder / f"{name}.parquet"
         if not path.is_file():
             raise KeyError(name)
+        from .analysis.hourly import seconds_since
         df = pd.read_parquet(path)
         start = pd.Timestamp(self.epoch.start)
         for c in df.columns:
             if c.endswith("_utc") and str(df[c].dtype).startswith("datetime64"):
-                df[c] = (df[c] - start) / pd.Timedelta(seconds=1)
+                df[c] = seconds_since(df[c], start)
         self[name] = df
         return df
 
@@ -193,13 +194,9 @@ def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
     if not scen.areas:
         return head + "\n" + format_table(summary, cols) + "\n"
     # generated terminals are summarised per area (weighted means; map.parquet has each one)
-    from .analysis.population import areas_frame, map_frame
-    pop = scen.population
     listed = summary[~summary["terminal"].astype(str).isin(
-        scen.terminal_names()[pop.first_index:])]
-    mp = map_frame(summary, pop, pop.first_index, scen.terminal_names())
-    per_area = areas_frame(mp, [a["name"] for a in scen.areas],
-                           [p["name"] for p in scen.policies])
+        scen.terminal_names()[scen.population.first_index:])]
+    per_area = map_and_areas(scen, summary)["areas"]
     text = head + "\n"
     if len(listed):
         text += format_table(listed, cols) + "\n"
@@ -305,8 +302,8 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     ``executor = "dask"`` the groups are tasks on a dask.distributed cluster (the scheduler at
     ``scheduler``, or a local cluster of ``workers`` processes), with the same tables.
     A run of one batch of terminals in one process keeps its tables in memory; any other
-    stores the per-event tables part by part in the folder being built (see the module
-    docstring) and returns them as :class:`FolderFrames`.
+    stores the per-event tables part by part in anonymous files (:mod:`dwell.io.parts`) and
+    returns them as :class:`FolderFrames`.
     """
     n = len(scen.terminals)
     workers = max(1, min(workers, n))

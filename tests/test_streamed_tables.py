@@ -113,10 +113,3 @@ def test_streamed_run_reads_its_tables_back(runs):
                                    equal_nan=True)
             else:
                 assert x.astype(str).tolist() == y.astype(str).tolist(), col
-
-
-def test_estimate_knows_the_load_range_size():
-    # io/estimate.py models a load range of LOAD_EVENTS_PER_PASS events (common practice:
-    # one constant, two modules; this keeps them equal)
-    from dwell.io import estimate
-    assert estimate.LOAD_EVENTS_PER_PASS == load.EVENTS_PER_PASS

@@ -45,6 +45,9 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
+# events one range holds at once (its home is the estimate, which counts it)
+from ..io.estimate import LOAD_EVENTS_PER_PASS as EVENTS_PER_PASS
+
 LEVELS = ("satellite", "cell")
 DIRECTIONS = ("into", "out_of", "within")
 
@@ -60,7 +63,6 @@ BURST_COLUMNS = ("policy", "level", "direction", "burst_terminals", "bursts", "h
 
 HANDOVER_COLUMNS = ("terminal", "policy", "time_utc", "scope", "from_satellite", "to_satellite",
                     "from_cell", "to_cell")
-EVENTS_PER_PASS = 2_000_000   # events held at once; more make another pass over the handovers
 KIND_DIRECTIONS = (0, 1, 2, 0, 1)   # into, out_of, within (satellite level), into, out_of (cell)
 
 

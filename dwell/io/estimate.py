@@ -75,7 +75,8 @@ WINDOW_B = 240.0          # a window and its pass, in the chunk tables and the w
 RESULT_B = 1.0e3          # per expected handover: its rows in links/handovers/outages
 SUMMARY_B = 4.0e3         # per terminal and policy: its summary and map rows (kept for the run)
 LOAD_EVENT_B = 200.0      # per load event of one range: keys, sums, sort and the rows built
-LOAD_EVENTS_PER_PASS = 2_000_000   # dwell.analysis.load.EVENTS_PER_PASS
+# load events one range of dwell.analysis.load holds at once (more make another pass)
+LOAD_EVENTS_PER_PASS = 2_000_000
 BUILDING_B = 100.0        # a canyon building: start, end, height and sorting temporaries
 
 # ---- CPU time (seconds) -----------------------------------------------------------------------
