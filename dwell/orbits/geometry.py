@@ -24,6 +24,9 @@ from .frames import EarthOrientation
 from .passes import CAUSE_EDGE, CAUSE_NAMES, PassOptions, Windows, find_windows_many, is_fixed
 from .sky import Sky
 
+WINDOW_COLUMNS = ("id", "sat", "start_s", "end_s", "start_cause", "end_cause", "culm_s",
+                  "culm_el_deg", "pass_id", "slot")
+
 
 @dataclass
 class SiteWindows:
@@ -222,34 +225,39 @@ class Geometry:
 
     def window_frame(self, site_index: int, *, floor_passes: bool = False) -> pd.DataFrame:
         """One row per visibility window (or floor pass) over the chunks computed so far,
-        intervals continued across chunk edges joined."""
+        intervals continued across chunk edges joined: the first piece's start, satellite and
+        causes, the last piece's end, the culmination of the highest piece.  Rows in time
+        order (ties by satellite).  Cost: a sort of the pieces, no per-window Python."""
         parts = []
         for sw in self.tables[site_index]:
             w, ids = (sw.passes, sw.pid) if floor_passes else (sw.windows, sw.wid)
             if not len(w):
                 continue
-            parts.append(pd.DataFrame({
-                "id": ids, "sat": w.sat, "start_s": w.start_s, "end_s": w.end_s,
-                "start_cause": w.start_cause, "end_cause": w.end_cause,
-                "culm_s": w.culm_s, "culm_el_deg": w.culm_el_deg,
-                "pass_id": sw.pid if floor_passes else sw.pass_gid,
-                "slot": np.full(len(w), -1) if floor_passes else sw.slot}))
-        cols = ["id", "sat", "start_s", "end_s", "start_cause", "end_cause", "culm_s",
-                "culm_el_deg", "pass_id", "slot"]
+            parts.append((ids, w.sat, w.start_s, w.end_s, w.start_cause, w.end_cause, w.culm_s,
+                          w.culm_el_deg, sw.pid if floor_passes else sw.pass_gid,
+                          np.full(len(w), -1) if floor_passes else sw.slot))
         if not parts:
             return pd.DataFrame({c: pd.Series(dtype="float64" if c.endswith(("_s", "_deg"))
-                                              else "int64") for c in cols})
-        df = pd.concat(parts, ignore_index=True).sort_values(["id", "start_s"], kind="stable")
-        best = df.groupby("id")["culm_el_deg"].idxmax()
-        agg = df.groupby("id", sort=True).agg(sat=("sat", "first"), start_s=("start_s", "first"),
-                                              end_s=("end_s", "last"),
-                                              start_cause=("start_cause", "first"),
-                                              end_cause=("end_cause", "last"),
-                                              pass_id=("pass_id", "first"), slot=("slot", "first"))
-        agg["culm_s"] = df.loc[best.values, "culm_s"].values
-        agg["culm_el_deg"] = df.loc[best.values, "culm_el_deg"].values
-        agg = agg.reset_index().sort_values(["start_s", "sat"], kind="stable").reset_index(drop=True)
-        return agg[cols]
+                                              else "int64") for c in WINDOW_COLUMNS})
+        col = {c: np.concatenate([p[i] for p in parts]) for i, c in enumerate(WINDOW_COLUMNS)}
+        order = np.lexsort((col["start_s"], col["id"]))          # by id, then start (stable)
+        col = {c: v[order] for c, v in col.items()}
+        ids = col["id"]
+        first = np.flatnonzero(np.concatenate([[True], ids[1:] != ids[:-1]]))
+        last = np.append(first[1:] - 1, ids.size - 1)
+        # the culmination of the highest piece (the first of equals, NaN never wins)
+        el = np.where(np.isnan(col["culm_el_deg"]), -np.inf, col["culm_el_deg"])
+        group = np.repeat(np.arange(first.size), np.diff(np.append(first, ids.size)))
+        top = np.maximum.reduceat(el, first)
+        pos = np.where(el == top[group], np.arange(ids.size), ids.size)
+        best = np.minimum.reduceat(pos, first)
+        out = {"id": ids[first], "sat": col["sat"][first], "start_s": col["start_s"][first],
+               "end_s": col["end_s"][last], "start_cause": col["start_cause"][first],
+               "end_cause": col["end_cause"][last], "culm_s": col["culm_s"][best],
+               "culm_el_deg": col["culm_el_deg"][best], "pass_id": col["pass_id"][first],
+               "slot": col["slot"][first]}
+        rank = np.lexsort((out["sat"], out["start_s"]))
+        return pd.DataFrame({c: out[c][rank] for c in WINDOW_COLUMNS})
 
     def close(self) -> None:
         self.sky.close()
