@@ -480,7 +480,7 @@ class Execution:
             known = rlf_s if rlf_s is not None and \
                 min(t_leave, self.s.duration_s) <= rlf_known_until_s else None
             outcome, t_end = self._outcome(d, to_cell, t_c, e0, t_leave, t_access, t_done, rlm,
-                                           known)
+                                           known, rows)
             if outcome == "failure":
                 t_new = t_end
                 old_end = min(old_end, max(t_leave, t_access if mbb else t_leave))
@@ -503,13 +503,14 @@ class Execution:
         return Handover(old_end, brk, t_new, outcome, t_end)
 
     def _outcome(self, d: Decision, to_cell: int, t_c: float, e0: float, t_leave: float,
-                 t_access: float, t_done: float, rlm, known_rlf_s: float | None = None
-                 ) -> tuple[str, float]:
+                 t_access: float, t_done: float, rlm, known_rlf_s: float | None = None,
+                 held: Rows | None = None) -> tuple[str, float]:
         """too-late (the source fails before the terminal leaves it), failure (the target is not
         fit for access when it completes, or access outlasts T304) or success, and when.
-        ``known_rlf_s``: the serving link's first failure, when the caller knows it."""
+        ``known_rlf_s``: the serving link's first failure, when the caller knows it; ``held``:
+        rows the caller holds, read instead of the stream when they cover what is needed."""
         from ..radio.measure import row_at_or_after
-        from .rlm import indications, quality_db
+        from .rlm import cell_column, indications, quality_at_db
 
         s = self.s
         k_end = row_at_or_after(min(max(t_leave, t_done), s.duration_s), s.period_s) + 2
@@ -532,13 +533,16 @@ class Execution:
             return "failure", t_hof
         k_done = row_at_or_after(t_done, s.period_s)
         k_lo = max(k_done - 2, row_at_or_after(t_c, s.period_s))     # rows still held
-        rows = self.stream.rows(k_lo, min(k_end, self.stream.K))
-        col_t = rows.column_of_cell(to_cell)
+        k_hi = min(k_end, self.stream.K)
+        if held is not None and held.k0 <= k_lo and held.k0 + held.n >= k_hi:
+            rows = held          # the same rows around t_done (the row after it included)
+        else:
+            rows = self.stream.rows(k_lo, k_hi)
         r = rows.row_at(t_done)
-        if col_t[r] < 0:
+        c = cell_column(rows, r, to_cell)
+        if c < 0:
             return "failure", t_hof
-        e_t = float(rows.end_s[r, col_t[r]])
-        q = float(quality_db(rows, col_t, np.array([t_done]), e_t)[0])
+        q = quality_at_db(rows, to_cell, t_done, float(rows.end_s[r, c]))
         if not q >= s.q_out_db:
             return "failure", t_hof
         return "success", t_done

@@ -66,6 +66,31 @@ def quality_db(rows: Rows, col: np.ndarray, t: np.ndarray, e0: float) -> np.ndar
     return np.where((t >= e0) & (tk < e0), -np.inf, out)
 
 
+def cell_column(rows: Rows, r: int, cell: int) -> int:
+    """Column of ``cell`` in row r (the first, as :meth:`Rows.column_of_cell` has it), or -1."""
+    row = rows.cell[r].tolist()          # a list scan: far cheaper than numpy on ~10 columns
+    return row.index(cell) if cell in row else -1
+
+
+def quality_at_db(rows: Rows, cell: int, t: float, e0: float) -> float:
+    """:func:`quality_db` of cell ``cell`` at the one instant ``t``: the same arithmetic on two
+    rows instead of whole-row arrays (the kernel asks this once per handover)."""
+    n = rows.n
+    k = min(max(int(np.searchsorted(rows.t_s, t, side="right")) - 1, 0), n - 1)
+    c = cell_column(rows, k, cell)
+    vk = float(rows.sinr_db[k, c]) if c >= 0 else -math.inf
+    vn = -math.inf
+    if k + 1 < n:
+        c1 = cell_column(rows, k + 1, cell)
+        vn = float(rows.sinr_db[k + 1, c1]) if c1 >= 0 else -math.inf
+    tk = float(rows.t_s[k])
+    out = vk
+    if math.isfinite(vk) and math.isfinite(vn) and k + 1 < n:
+        tn = float(rows.t_s[k + 1])
+        out = vk + (vn - vk) * ((t - tk) / (tn - tk if tn > tk else 1.0))
+    return -math.inf if t >= e0 and tk < e0 else out
+
+
 def _window_mean_db(rows, col, t_i, window_s, step_s, t_c, e0) -> np.ndarray:
     m = max(1, int(round(window_s / step_s)))
     back = t_i[:, None] - step_s * np.arange(m)[None, :]
@@ -105,6 +130,11 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
     interval_good[:-1] &= good[1:]
     interval_good[:-1] &= ~((rows.t_s[:-1] < e0) & (e0 <= rows.t_s[1:]))
     interval_good &= rows.t_s < e0
+    if interval_good.all():
+        # nothing doubtful (most calls: the link ends before its window does): every instant
+        # is in-sync, and only the first keep_good of them are asked for
+        idx = np.arange(i0, i1 if keep_good is None else min(i1, i0 + keep_good))
+        return idx * T, np.zeros(idx.size, bool), np.ones(idx.size, bool)
     w = max(timing.evaluation_out_s, timing.evaluation_in_s)
     # instants whose windows touch a doubtful interval: [t_k, t_(k+1) + w) for each bad k
     bad = np.flatnonzero(~interval_good)

@@ -79,8 +79,11 @@ def _segments_of(key: np.ndarray, cost: int) -> tuple[np.ndarray, np.ndarray]:
         change[0] = True
         np.not_equal(key[1:], key[:-1], out=change[1:])
         n_runs = int(np.count_nonzero(change))
-        if n_runs * cost <= 2 * key.size:       # a table per run costs `cost` rows
-            return key[change], np.cumsum(change) - 1
+        run_key = key[change]
+        # runs are the segments when no key comes back in a later run (checked on the few
+        # run keys), or when the repeats cost less than a sort (a table per run costs `cost`)
+        if n_runs * cost <= 2 * key.size or np.unique(run_key).size == n_runs:
+            return run_key, np.cumsum(change) - 1
     return np.unique(key, return_inverse=True)
 
 
@@ -177,6 +180,9 @@ class SkyChunk:
             p1 = self._pack[s_sat[a:b], s_int[a:b] + 1].reshape(b - a, 3, 3)
             blocks = np.concatenate([p0, p1], axis=1)                    # (n, 6, 3)
             table = np.matmul(w[None, :, :], blocks)                    # (n, q+1, 3)
+            if a == 0 and b == seg.size:         # one batch: every sample, no mask
+                out[...] = table[inv, j]
+                break
             m = (inv >= a) & (inv < b)
             out[m] = table[inv[m] - a, j[m]]
         if off.any():                            # instants that are not on the grid after all
@@ -303,8 +309,12 @@ class Sky:
         return out
 
     def _by_chunk(self, t_s: np.ndarray):
-        """(chunk, mask) for the chunks the instants fall in."""
+        """(chunk, mask) for the chunks the instants fall in; the mask is None when they all
+        fall in one (the common case: the caller then skips masked copies)."""
         cidx = np.minimum(self.n_chunks - 1, np.maximum(0, np.floor(t_s / self.chunk_s))).astype(int)
+        if cidx.size and cidx.min() == cidx.max():     # the common case: one chunk, no mask
+            yield self.chunk(int(cidx.flat[0])), None
+            return
         for c in np.unique(cidx):
             yield self.chunk(int(c)), cidx == c
 
@@ -320,6 +330,8 @@ class Sky:
         sat, t_s = np.broadcast_arrays(np.asarray(sat), np.asarray(t_s, dtype=float))
         out = np.empty(t_s.shape + (3,))
         for chunk, m in self._by_chunk(t_s):
+            if m is None:
+                return fn(chunk, sat, t_s)
             out[m] = fn(chunk, sat[m], t_s[m])
         return out
 
@@ -330,6 +342,8 @@ class Sky:
         pos = np.empty(t_s.shape + (3,))
         vel = np.empty(t_s.shape + (3,)) if velocity else None
         for chunk, m in self._by_chunk(t_s):
+            if m is None:
+                return chunk.states(sat, t_s, velocity=velocity)
             p, q = chunk.states(sat[m], t_s[m], velocity=velocity)
             pos[m] = p
             if velocity:

@@ -25,23 +25,42 @@ def stream_id(name: str) -> int:
 
 
 def _mix(x: np.ndarray) -> np.ndarray:
-    x = x ^ (x >> np.uint64(30))
-    x = x * _M1
-    x = x ^ (x >> np.uint64(27))
-    x = x * _M2
-    return x ^ (x >> np.uint64(31))
+    """SplitMix64's finaliser, in place on a uint64 array (returns it)."""
+    x ^= x >> np.uint64(30)
+    x *= _M1
+    x ^= x >> np.uint64(27)
+    x *= _M2
+    x ^= x >> np.uint64(31)
+    return x
+
+
+def _seed_state(seed: int, stream: int) -> np.uint64:
+    """The (seed, stream) part of every draw's state: the same for all of a call's draws, so
+    mixed once as a scalar."""
+    x = np.array([(int(seed) * 0x9E3779B97F4A7C15 + int(stream)) % 2 ** 64], dtype=np.uint64)
+    with np.errstate(over="ignore"):
+        x += _GOLDEN
+        return _mix(x)[0]
 
 
 def uniform(seed: int, stream: int, key: np.ndarray | int, index: np.ndarray | int) -> np.ndarray:
     """Uniform draws in the open interval (0, 1), one per broadcast element of key x index."""
     key, index = np.broadcast_arrays(np.asarray(key, dtype=np.int64), np.asarray(index, dtype=np.int64))
     with np.errstate(over="ignore"):
-        x = np.full(key.shape, (int(seed) * 0x9E3779B97F4A7C15 + int(stream)) % 2 ** 64,
-                    dtype=np.uint64)
-        x = _mix(x + _GOLDEN)
-        x = _mix(x ^ (key.astype(np.uint64) * _GOLDEN))
-        x = _mix(x ^ (index.astype(np.uint64) * _M1 + _GOLDEN))
-    return ((x >> np.uint64(11)).astype(np.float64) + 0.5) * (1.0 / 2 ** 53)
+        x = key.astype(np.uint64)
+        x *= _GOLDEN
+        x ^= _seed_state(seed, stream)
+        x = _mix(x)
+        y = index.astype(np.uint64)
+        y *= _M1
+        y += _GOLDEN
+        x ^= y
+        x = _mix(x)
+    x >>= np.uint64(11)
+    out = x.astype(np.float64)
+    out += 0.5
+    out *= 1.0 / 2 ** 53
+    return out if out.ndim else out[()]
 
 
 def normal(seed: int, stream: int, key: np.ndarray | int, index: np.ndarray | int) -> np.ndarray:
