@@ -185,9 +185,13 @@ class SinrHistogram:
     def __init__(self, duration_s: float):
         self.n_hours = max(1, math.ceil(duration_s / 3600.0 - 1e-9))
         self.n_bins = int(round((self.HI_DB - self.LO_DB) / self.STEP_DB)) + 2
-        self.counts = np.zeros((self.n_hours, self.n_bins), dtype=np.int64)
+        self._counts = np.zeros((self.n_hours, self.n_bins), dtype=np.int64)
+        self._pending: list[np.ndarray] = []     # flat bin indices not yet counted
+        self._n_pending = 0
         self.sum_db = 0.0
         self.n = 0
+
+    PENDING_MAX = 1 << 16     # count in bulk (one bincount) once this many values wait
 
     def add(self, t_s: np.ndarray, sinr_db: np.ndarray) -> None:
         if t_s.size == 0:
@@ -195,9 +199,26 @@ class SinrHistogram:
         h = np.minimum((t_s // 3600.0).astype(np.int64), self.n_hours - 1)
         b = np.minimum(np.maximum(np.floor((sinr_db - self.LO_DB) / self.STEP_DB).astype(np.int64)
                                   + 1, 0), self.n_bins - 1)
-        np.add.at(self.counts, (h, b), 1)
+        # a link adds a few dozen values: collected and counted in bulk, not np.add.at per link
+        self._pending.append(h * self.n_bins + b)
+        self._n_pending += h.size
+        if self._n_pending >= self.PENDING_MAX:
+            self._flush()
         self.sum_db += float(np.sum(sinr_db))
         self.n += int(sinr_db.size)
+
+    def _flush(self) -> None:
+        if self._pending:
+            flat = np.concatenate(self._pending)
+            self._counts += np.bincount(flat, minlength=self._counts.size).reshape(
+                self._counts.shape)
+            self._pending, self._n_pending = [], 0
+
+    @property
+    def counts(self) -> np.ndarray:
+        """Values per (clock hour, bin)."""
+        self._flush()
+        return self._counts
 
     def edges_db(self) -> np.ndarray:
         """Lower edge of each bin (the first bin holds everything below LO_DB)."""

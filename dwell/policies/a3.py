@@ -121,9 +121,9 @@ class EventA3(TimeToTriggerRule):
         t_first = float(tau[r0])
         g = link.release_s
         if g <= t_first:
-            lhs = rows.rsrp_dbm + self.ocn
-            return self._pick(rows, np.where(rows.sat >= 0, lhs, -np.inf),
-                              np.flatnonzero(valid[r0]), t_first)
+            r = rows.row_at(t_first, self.period_s)     # only the decision's row is read
+            lhs_r = np.where(rows.sat[r] >= 0, rows.rsrp_dbm[r] + self.ocn, -np.inf)
+            return self._pick_in_row(rows, r, lhs_r, np.flatnonzero(valid[r0]), t_first)
         measured, enter, leave, lhs = self._conditions(rows, link)
         eb = held_runs(enter, rows.win, m)
         eb[: n - m] &= tau[:, None] < rows.end_s[: n - m]      # entries whose window outlasts them
@@ -187,7 +187,13 @@ class EventA3(TimeToTriggerRule):
 
     def _pick(self, rows: Rows, lhs: np.ndarray, cols: np.ndarray, t_ho: float) -> Decision:
         r = rows.row_at(t_ho, self.period_s)
-        vals = lhs[r, cols]
+        return self._pick_in_row(rows, r, lhs[r], cols, t_ho)
+
+    def _pick_in_row(self, rows: Rows, r: int, lhs_r: np.ndarray, cols: np.ndarray,
+                     t_ho: float) -> Decision:
+        """The best of the candidate columns ``cols`` of row r by ``lhs_r`` (that row's
+        left-hand sides); ties to the lower satellite, then the lower cell id."""
+        vals = lhs_r[cols]
         top = cols[vals == vals.max()]
         top = top[rows.sat[r, top] == rows.sat[r, top].min()]
         c = int(top[np.argmin(rows.cell[r, top])])

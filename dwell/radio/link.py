@@ -116,8 +116,14 @@ def off_boresight_deg(sat_r_km: np.ndarray, site_r_km: np.ndarray) -> np.ndarray
     nadir = -sat
     to_site = np.asarray(site_r_km, dtype=float) - sat
     nadir, to_site = np.broadcast_arrays(nadir, to_site)
-    # atan2(|a x b|, a.b) stays accurate near 0 where arccos of the cosine would not
-    cross = np.linalg.norm(np.cross(nadir, to_site), axis=-1)
+    # atan2(|a x b|, a.b) stays accurate near 0 where arccos of the cosine would not; the
+    # cross product by components (np.cross's own formula, without its axis shuffling)
+    a0, a1, a2 = nadir[..., 0], nadir[..., 1], nadir[..., 2]
+    b0, b1, b2 = to_site[..., 0], to_site[..., 1], to_site[..., 2]
+    c0 = a1 * b2 - a2 * b1
+    c1 = a2 * b0 - a0 * b2
+    c2 = a0 * b1 - a1 * b0
+    cross = np.sqrt(c0 * c0 + c1 * c1 + c2 * c2)
     dot = np.einsum("...i,...i->...", nadir, to_site)
     return np.degrees(np.arctan2(cross, dot))
 

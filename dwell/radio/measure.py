@@ -278,8 +278,9 @@ class MeasurementStream:
         piece = np.repeat(np.arange(sat.size), r1 - r0)
         k = _ranges(r0, r1)
         # pairs ordered window by window, then time: one contiguous segment per window
-        order = np.lexsort((k, wid[piece]))
-        piece, k = piece[order], k[order]
+        order = _lexsort((k, wid[piece]))
+        if order is not None:
+            piece, k = piece[order], k[order]
         blk = None
         if k.size:
             cells, vals = self._measure(sat[piece], wid[piece], k, k_a, nb)
@@ -399,7 +400,8 @@ class MeasurementStream:
         # one is set), ordered by cell run (window, cell), then row
         detect = self.lp.get("detection_sinr_db")
         m = np.flatnonzero(cs.measured & (sinr >= detect) if detect is not None else cs.measured)
-        order = m[np.lexsort((k[cs.pair[m]], cs.cell[m], win[cs.pair[m]]))]
+        by_run = _lexsort((k[cs.pair[m]], cs.cell[m], win[cs.pair[m]]))
+        order = m if by_run is None else m[by_run]
         pr = cs.pair[order]
         cell, beam = cs.cell[order], cs.beam[order]
         kk = k[pr]
@@ -457,32 +459,37 @@ class MeasurementStream:
         width = int(cols.max()) + 1
         blk = {f: np.full((nb, width), -1 if f in INT_FIELDS else np.nan,
                           dtype=np.int64 if f in INT_FIELDS else float) for f in FIELDS}
-        r, c = vals["row"], cols[run_of]
+        flat = vals["row"] * width + cols[run_of]    # flat positions: one index for all fields
+
+        def put(f: str, v: np.ndarray) -> None:
+            blk[f].reshape(-1)[flat] = v             # a view: the arrays are fresh, contiguous
+
         idx = self.geo.index[self.k_site]
-        blk["sat"][r, c] = vals["pair_sat"]
-        blk["win"][r, c] = ids[run_of]
-        blk["cell"][r, c] = vals["cell"]
-        blk["beam"][r, c] = vals["beam"]
-        blk["start_s"][r, c] = idx.start_s[vals["pair_win"]]
-        blk["end_s"][r, c] = idx.end_s[vals["pair_win"]]
+        put("sat", vals["pair_sat"])
+        put("win", ids[run_of])
+        put("cell", vals["cell"])
+        put("beam", vals["beam"])
+        put("start_s", idx.start_s[vals["pair_win"]])
+        end_s = idx.end_s[vals["pair_win"]]
+        put("end_s", end_s)
         # a cell's service ends with its satellite's window, or earlier at a cell switch
-        blk["cell_end_s"][r, c] = np.fmin(idx.end_s[vals["pair_win"]], vals["until_s"])
+        put("cell_end_s", np.fmin(end_s, vals["until_s"]))
         # the floor pass's end: when ephemeris says the satellite leaves (no obstruction)
         passes = idx.pass_id[vals["pair_win"]]
-        blk["pass_end_s"][r, c] = self.geo.pass_index[self.k_site].end_s[passes] \
-            if passes.size else np.zeros(0)
-        blk["rsrp_dbm"][r, c] = filt
-        blk["rsrp_raw_dbm"][r, c] = raw
+        put("pass_end_s", self.geo.pass_index[self.k_site].end_s[passes]
+            if passes.size else np.zeros(0))
+        put("rsrp_dbm", filt)
+        put("rsrp_raw_dbm", raw)
         for f in ("snr_db", "sinr_db", "elevation_deg", "azimuth_deg", "range_km", "nadir_km",
                   "ref_km", "range_rate_km_s"):
-            blk[f][r, c] = vals[f]
+            put(f, vals[f])
         # the reference location's distance when the cell was first measured (a reference
         # location fixed at configuration, as Rel-17 event D1 has it)
         first = np.flatnonzero(new_run)
         ref0 = vals["ref_km"][first].copy()
         for i, rid in enumerate(ids.tolist()):
             ref0[i] = self._carry_ref0.setdefault(rid, float(ref0[i]))
-        blk["ref0_km"][r, c] = ref0[run_of]
+        put("ref0_km", ref0[run_of])
         return blk
 
     def _l1_noise(self, runs, new_run, ids, run_of, k) -> tuple[np.ndarray, np.ndarray]:
@@ -568,6 +575,21 @@ class MeasurementStream:
     def _store(store: dict[int, float], seg_w: np.ndarray, last: np.ndarray) -> None:
         # only windows still open matter next block, but storing all is cheap and simple
         store.update(zip(seg_w.tolist(), last.tolist()))
+
+
+def _lexsort(keys: tuple[np.ndarray, ...]) -> np.ndarray | None:
+    """``np.lexsort(keys)`` (last key primary), or None when the rows are in that order
+    already (single-beam pairs come sorted): the check is a few passes, the sort a log more.
+    Rows with all keys equal keep their order, as the stable lexsort keeps them."""
+    if keys[0].size < 2:
+        return None
+    undecided = None                # consecutive rows equal on the keys seen so far
+    for key in keys[::-1]:
+        d = np.diff(key)
+        if (d < 0 if undecided is None else undecided & (d < 0)).any():
+            return np.lexsort(keys)
+        undecided = d == 0 if undecided is None else undecided & (d == 0)
+    return None
 
 
 def _normal_streams(seed: int, stream: np.ndarray, key: np.ndarray, index: np.ndarray
