@@ -91,15 +91,24 @@ def quality_at_db(rows: Rows, cell: int, t: float, e0: float) -> float:
     return -math.inf if t >= e0 and tk < e0 else out
 
 
-def _window_mean_db(rows, col, t_i, window_s, step_s, t_c, e0) -> np.ndarray:
-    m = max(1, int(round(window_s / step_s)))
-    back = t_i[:, None] - step_s * np.arange(m)[None, :]
+def _window_means_db(rows, col, t_i, windows_s: tuple[float, ...], step_s, t_c, e0
+                     ) -> list[np.ndarray]:
+    """Linear-mean quality over each evaluation window ending at the instants ``t_i`` (one
+    array per window length).  The windows share their latest instants, so the quality is
+    evaluated once, for the longest, and each window averages its own leading columns."""
+    ms = [max(1, int(round(w / step_s))) for w in windows_s]
+    back = t_i[:, None] - step_s * np.arange(max(ms))[None, :]
     ok = back >= t_c - 1e-9
     q = quality_db(rows, col, np.maximum(back, t_c).ravel(), e0).reshape(back.shape)
     lin = np.where(ok & np.isfinite(q), 10.0 ** (np.where(np.isfinite(q), q, 0.0) / 10.0), 0.0)
-    mean = lin.sum(axis=1) / np.maximum(ok.sum(axis=1), 1)
-    with np.errstate(divide="ignore"):
-        return 10.0 * np.log10(mean)
+    out = []
+    for m in ms:
+        # contiguous copies: each sum runs over exactly the array a window of m would build
+        part = np.ascontiguousarray(lin[:, :m])
+        n_ok = np.ascontiguousarray(ok[:, :m]).sum(axis=1)
+        with np.errstate(divide="ignore"):
+            out.append(10.0 * np.log10(part.sum(axis=1) / np.maximum(n_ok, 1)))
+    return out
 
 
 def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: float, e0: float,
@@ -192,8 +201,8 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
         ins[d[gone]] = False
         d = d[~gone]
     if d.size:
-        out_db = _window_mean_db(rows, col, t_i[d], timing.evaluation_out_s, T, t_c, e0)
-        in_db = _window_mean_db(rows, col, t_i[d], timing.evaluation_in_s, T, t_c, e0)
+        out_db, in_db = _window_means_db(rows, col, t_i[d], (timing.evaluation_out_s,
+                                                            timing.evaluation_in_s), T, t_c, e0)
         oos[d] = out_db < timing.q_out_db
         ins[d] = in_db >= timing.q_in_db
     return t_i, oos, ins
