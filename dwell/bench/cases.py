@@ -135,6 +135,8 @@ def case_passes_many(duration_s: float, satellites: int, n_terminals: int, ref_t
             "peak_mib": peak_mib()}
 
 
+KERNEL_REPEATS = 3     # each kernel runs this often on the same rows; the least time counts
+
 A3_POLICY = {"name": "a3", "rule": "a3", "offset_db": 3.0, "hysteresis_db": 1.0,
              "time_to_trigger_s": 0.64}
 
@@ -165,20 +167,25 @@ def case_kernel(duration_s: float, satellites: int, shadowing_std_db: float = 2.
     build_s, _ = _timed(lambda: stream.rows(0, stream.K))
     out = {}
     for name, cls in (("fast", FastRun), ("naive", NaiveRun)):
-        env = simpy.Environment()
-        policy = pm.build(scen.policies[0], 1.0)
-        ex = Execution(RunSettings.of(scen.terminals[0], policy, stream.lp, geo.duration_s, 1.0),
-                       stream)
-        cls(env, policy, ex)
-        stream.release(0, hold)
-        t, _ = _timed(env.run)
-        out[name] = (t, ex.rec)
+        times = []
+        for _ in range(KERNEL_REPEATS):
+            env = simpy.Environment()
+            policy = pm.build(scen.policies[0], 1.0)
+            ex = Execution(RunSettings.of(scen.terminals[0], policy, stream.lp, geo.duration_s,
+                                          1.0), stream)
+            cls(env, policy, ex)
+            stream.release(0, hold)
+            t, _ = _timed(env.run)
+            times.append(t)
+        # the least of the repeats for both kernels: on a shared machine the other figures
+        # measure the neighbours (the minimum is what the timeit documentation advises)
+        out[name] = (min(times), ex.rec)
     same = out["fast"][1].signature() == out["naive"][1].signature()
     label = f"kernel-a3-hys{hysteresis_db:g}-noise{measurement_noise_db:g}-shadow{shadowing_std_db:g}"
     n_ho = len(out["fast"][1].handovers)
     return {"case": label, "ours_s": out["fast"][0], "mean_dwell_s": duration_s / max(1, n_ho),
             "reference_s": out["naive"][0], "ratio": out["naive"][0] / out["fast"][0],
-            "target_ratio": 20.0, "same_handovers": same,
+            "target_ratio": 20.0, "same_handovers": same, "repeats": KERNEL_REPEATS,
             "handovers": len(out["fast"][1].handovers), "rows_build_s": build_s,
             "peak_mib": peak_mib()}
 

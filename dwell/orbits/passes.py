@@ -358,7 +358,9 @@ def find_windows_many(chunk: SkyChunk, sites: list[Site], earth: EarthOrientatio
     t = fine_t[col]
     site_pos, site_up = ev.position_up(None, fine_t)                   # (sites, fine, 3)
     of = sat // n_sat
-    f = elevation_deg(sub[keep], site_pos[of, col], site_up[of, col]) - ev.floor_deg[of]
+    at = of * fine_t.size + col                       # flat (site, fine instant) rows: np.take
+    f = elevation_deg(sub[keep], np.take(site_pos.reshape(-1, 3), at, axis=0),
+                      np.take(site_up.reshape(-1, 3), at, axis=0)) - ev.floor_deg[of]
     first = np.concatenate([[True], run[1:] != run[:-1]])
     last = np.concatenate([run[1:] != run[:-1], [True]])
     same = ~last[:-1]
