@@ -179,9 +179,11 @@ def run(config: Path, out: Path, kernel: str, check: bool, workers: int, executo
     if trace is not None and trace not in scen.terminal_names():
         raise InputError(str(config), "--trace", trace,
                          "no such terminal (known: " + ", ".join(scen.terminal_names()) + ")")
-    with Progress("simulating", "h", scale=1 / 3600, decimals=1) as bar:
+    with Progress("simulating", "h", scale=1 / 3600, decimals=1) as bar, \
+            Progress("writing", "tables") as written:
         tables = execute(scen, out, kernel=kernel, check=check, warn=_warn, workers=workers,
-                         progress=bar.to, trace=trace, executor=executor, scheduler=scheduler)
+                         progress=bar.to, trace=trace, executor=executor, scheduler=scheduler,
+                         writing=written.to)
     click.echo(summary_text(scen, tables.frames["summary"]), nl=False)
     click.echo(f"tables -> {out}")
 

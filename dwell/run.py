@@ -293,7 +293,8 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
             progress: Callable[[float, float], None] | None = None,
             warn: Callable[[str], None] | None = None, workers: int = 1,
             trace: str | None = None, executor: str = "local",
-            scheduler: str | None = None) -> RunTables:
+            scheduler: str | None = None,
+            writing: Callable[[float, float, str], None] | None = None) -> RunTables:
     """Run a scenario and write its folder atomically.
 
     With ``workers`` > 1 the terminals are split into contiguous groups run by forked worker
@@ -303,14 +304,15 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
     ``scheduler``, or a local cluster of ``workers`` processes), with the same tables.
     A run of one batch of terminals in one process keeps its tables in memory; any other
     stores the per-event tables part by part in anonymous files (:mod:`dwell.io.parts`) and
-    returns them as :class:`FolderFrames`.
+    returns them as :class:`FolderFrames`.  ``writing(done, total, table)`` follows the
+    writing of the folder, a table at a time (the long last step of a large run).
     """
     n = len(scen.terminals)
     workers = max(1, min(workers, n))
     if executor != "dask" and workers == 1 and n <= TERMINAL_BATCH:
         tables = run_tables(scen, kernel=kernel, check=check, progress=progress, warn=warn,
                             trace=trace)
-        tables.frames.update(write_run_folder(scen, tables, out_dir))
+        tables.frames.update(write_run_folder(scen, tables, out_dir, writing))
         return tables
     parts = TableParts(Path(out_dir).absolute().parent)   # anonymous files: see io/parts.py
     try:
@@ -323,7 +325,8 @@ def execute(scen: Scenario, out_dir: str | Path, *, kernel: str = "fast", check:
         else:
             frames = _run_forked(scen, kernel, check, progress, warn, workers, trace, parts)
         with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
-            small = _write_tables(scen, tmp, frames, parts, out_dir, keep_load=False)
+            small = _write_tables(scen, tmp, frames, parts, out_dir, keep_load=False,
+                                  writing=writing)
     finally:
         parts.close()
     return RunTables(FolderFrames(out_dir, scen.epoch, {**frames, **small}), [])
@@ -518,18 +521,20 @@ def _not_ours(name: Path) -> str:
             "(choose another -o)")
 
 
-def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path
+def write_run_folder(scen: Scenario, tables: RunTables, out_dir: str | Path,
+                     writing: Callable[[float, float, str], None] | None = None
                      ) -> dict[str, pd.DataFrame]:
     """Write a run's tables held in memory as its folder, atomically; returns the population
     tables it built (``map``, ``areas`` and the load tables)."""
     with atomic_dir(out_dir, may_replace=run_folder_problem) as tmp:
         return _write_tables(scen, tmp, tables.frames, FrameSource(tables.frames), out_dir,
-                             keep_load=True)
+                             keep_load=True, writing=writing)
 
 
 def _write_tables(scen: Scenario, tmp: Path, frames: dict[str, pd.DataFrame],
                   source: TableParts | FrameSource, out_dir: str | Path, *,
-                  keep_load: bool) -> dict[str, pd.DataFrame]:
+                  keep_load: bool, writing: Callable[[float, float, str], None] | None = None
+                  ) -> dict[str, pd.DataFrame]:
     """Write every table of a run into the folder ``tmp`` (to be renamed ``out_dir``): the
     per-event tables from ``source``, the summary (and trace) from ``frames``, and the
     population tables built here (the load tables from the handovers, a range of elements at
@@ -539,9 +544,20 @@ def _write_tables(scen: Scenario, tmp: Path, frames: dict[str, pd.DataFrame],
     from .io.areas import terminal_weights
 
     meta = provenance(scen)
+    steps = len(STREAMED) + 2                 # the per-event tables, load, the small ones
+    done = 0
+
+    def step(name: str) -> None:
+        nonlocal done
+        if writing is not None:
+            writing(done, steps, name)        # the table about to be written
+        done += 1
+
     for name in STREAMED:
+        step(name)
         write_tables(source.tables(name), tmp / f"{name}.parquet", epoch=scen.epoch,
                      metadata=meta, schema=source.schema(name))
+    step("load")
     built = map_and_areas(scen, frames["summary"])
     weights = dict(zip(scen.terminal_names(), terminal_weights(scen).tolist()))
     policies = [p["name"] for p in scen.policies]
@@ -561,6 +577,7 @@ def _write_tables(scen: Scenario, tmp: Path, frames: dict[str, pd.DataFrame],
     built["load_bursts"] = bursts_frame(bursts, policies)
     if keep_load:
         built["load"] = pd.concat(loads, ignore_index=True)
+    step("summary, map, areas")
     for name in ("summary", "trace"):
         if name in frames:
             write_frame(frames[name], tmp / f"{name}.parquet", scen)
@@ -568,6 +585,8 @@ def _write_tables(scen: Scenario, tmp: Path, frames: dict[str, pd.DataFrame],
         write_frame(built[name], tmp / f"{name}.parquet", scen)
     (tmp / "run.toml").write_text(run_toml(scen, out_dir))
     (tmp / "summary.txt").write_text(summary_text(scen, frames["summary"]))
+    if writing is not None:
+        writing(steps, steps, "done")
     return built
 
 

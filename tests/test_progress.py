@@ -49,3 +49,22 @@ def test_run_prints_no_progress_when_stderr_is_not_a_terminal(tmp_path):
                                     "--workers", "2"])
     assert res.exit_code == 0, res.output
     assert "simulating" not in res.stderr and "%|" not in res.stderr
+
+
+def test_writing_a_run_folder_reports_each_table_and_ends_at_the_total(tmp_path):
+    # the long last step of a large run (issue 15): the folder is written a table at a time
+    # and the bar follows it; the contract is the callback, checked on both write paths
+    from dwell.io.config import load_scenario
+    from dwell.run import STREAMED, execute
+
+    quick = Path(__file__).resolve().parents[1] / "configs" / "quick.toml"
+    cfg = tmp_path / "tiny.toml"
+    cfg.write_text(quick.read_text().replace("duration_s = 21600", "duration_s = 600"))
+    for workers in (1, 2):                       # in memory; parts from two processes
+        seen: list[tuple[float, float, str]] = []
+        execute(load_scenario(cfg), tmp_path / f"out{workers}", workers=workers,
+                writing=lambda done, total, name: seen.append((done, total, name)))
+        names = [n for _, _, n in seen]
+        assert set(STREAMED) <= set(names) and "load" in names
+        assert [d for d, _, _ in seen] == sorted(d for d, _, _ in seen)   # never backwards
+        assert seen[-1][0] == seen[-1][1]                                   # ends complete
