@@ -294,20 +294,33 @@ def _screen(chunk: SkyChunk, site: Site, earth: EarthOrientation, opts: PassOpti
             max_rate_rad_s: float) -> tuple[np.ndarray, np.ndarray]:
     """Candidate (satellite, interval) pairs that may hold visibility."""
     grid = chunk.grid_s
-    pos, _, _ = site.teme(grid, earth)                       # (n, 3)
-    unit, r_max = chunk.directions()                         # (S, n, 3), (S,): shared
+    pos, _ = site.position_up(grid, earth)                   # (n, 3): teme()'s position
+    unit, r_max = chunk.directions()                         # (3, S, n), (S,): shared
     r_site = np.linalg.norm(pos, axis=-1)
-    cosg = np.einsum("snk,nk->sn", unit, pos / r_site[:, None])
-    gamma = np.arccos(np.clip(cosg, -1.0, 1.0))
+    d = pos / r_site[:, None]
+    # the dot product term by term, in einsum's order (the same values, on contiguous rows)
+    cosg = unit[0] * d[:, 0]
+    cosg += unit[1] * d[:, 1]
+    cosg += unit[2] * d[:, 2]
     e = np.radians(site.floor_deg - opts.screen_margin_deg)
     # the widest cap: the satellite's highest point in the chunk, the site's lowest
     gmax = np.arccos(np.clip(float(r_site.min()) * math.cos(e) / r_max, -1.0, 1.0)) - e
     h = np.diff(grid)
-    reach = 0.5 * (gamma[:, :-1] + gamma[:, 1:] - max_rate_rad_s * h[None, :])
-    cand = reach <= gmax[:, None]
-    cand &= chunk.valid[:, None]
-    s, i = np.nonzero(cand)
-    return s, i
+    slack = 0.5 * max_rate_rad_s * float(h.max())
+    # an interval is a candidate when the mean of its end angles, less the motion, is within
+    # the cap; that needs the nearer end within cap + motion, which cosines tell without an
+    # arccos, so the exact test runs on those few intervals only
+    # (1e-9 rad of margin: the cosine and arccos roundings can never drop a candidate)
+    widest = gmax + slack + 1e-9
+    near = np.where(widest < np.pi, np.cos(np.minimum(widest, np.pi)), -np.inf)[:, None]
+    maybe = np.flatnonzero((np.maximum(cosg[:, :-1], cosg[:, 1:]) >= near) &
+                           chunk.valid[:, None])
+    s, i = np.divmod(maybe, grid.size - 1)
+    ga = np.arccos(np.clip(cosg[s, i], -1.0, 1.0))
+    gb = np.arccos(np.clip(cosg[s, i + 1], -1.0, 1.0))
+    reach = 0.5 * (ga + gb - max_rate_rad_s * h[i])
+    keep = reach <= gmax[s]
+    return s[keep], i[keep]
 
 
 def find_windows(chunk: SkyChunk, site: Site, earth: EarthOrientation, max_rate_rad_s: float,

@@ -193,11 +193,13 @@ class SkyChunk:
         return out
 
     def directions(self) -> tuple[np.ndarray, np.ndarray]:
-        """Unit position vectors (S, n, 3) and each satellite's largest radius in the chunk
-        (S,): what screening needs, computed once for all terminals."""
+        """Unit position vectors, component by component (3, S, n: each component contiguous,
+        so a terminal's screening reads three plain arrays), and each satellite's largest
+        radius in the chunk (S,): what screening needs, computed once for all terminals."""
         if getattr(self, "_dirs", None) is None:
             r = np.linalg.norm(self.r_km, axis=-1)
-            self._dirs = (self.r_km / r[..., None], r.max(axis=1))
+            unit = self.r_km / r[..., None]
+            self._dirs = (np.ascontiguousarray(np.moveaxis(unit, -1, 0)), r.max(axis=1))
         return self._dirs
 
     def sub_positions(self, sat: np.ndarray, interval: np.ndarray, per_interval: int
