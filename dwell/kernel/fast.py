@@ -122,7 +122,8 @@ class FastRun(KernelRun):
         while True:
             rows = self.stream.rows(kc, kc + n)
             if e0 is None:
-                c0 = rows.column_of(sat)[0]
+                row0 = rows.sat[0].tolist()      # row 0 only (column_of would scan all)
+                c0 = row0.index(sat) if sat in row0 else -1
                 if c0 >= 0 and rows.start_s[0, c0] <= t_c:
                     e0 = float(rows.end_s[0, c0])     # the window open at row kc covers t_c
                 else:

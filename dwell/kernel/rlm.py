@@ -44,8 +44,18 @@ class RlmTiming:
 
 
 def _row_values(rows: Rows, col: np.ndarray) -> np.ndarray:
+    """The serving cell's SINR per row (-inf where unmeasured), cached with the rows when
+    ``col`` is one of their cached columns (the caches hold ``col``, so its identity is safe);
+    several monitors read it for each link."""
+    key = ("sinr-of", id(col))
+    hit = rows._cols.get(key)
+    if hit is not None and hit[0] is col:
+        return hit[1]
     rr = np.arange(rows.n)
-    return np.where(col >= 0, rows.sinr_db[rr, np.maximum(col, 0)], -np.inf)
+    v = np.where(col >= 0, rows.sinr_db[rr, np.maximum(col, 0)], -np.inf)
+    if any(c is col for c in rows._cols.values()):
+        rows._cols[key] = (col, v)
+    return v
 
 
 def quality_db(rows: Rows, col: np.ndarray, t: np.ndarray, e0: float) -> np.ndarray:
@@ -259,6 +269,8 @@ def weak_intervals(rows: Rows, col: np.ndarray, t_from: float, t_to: float, e0: 
     (unmeasured included), within [t_from, t_to): exact crossings of the interpolated quality,
     so the outage it causes does not depend on the row period."""
     v = _row_values(rows, col)
+    if np.all(v >= q_out_db):       # measured and at or above q_out everywhere: none (the
+        return []                   # general pass below finds none either, row by row)
     out: list[tuple[float, float]] = []
     n = rows.n
     t = rows.t_s
