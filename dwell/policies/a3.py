@@ -193,11 +193,21 @@ class EventA3(TimeToTriggerRule):
                      t_ho: float) -> Decision:
         """The best of the candidate columns ``cols`` of row r by ``lhs_r`` (that row's
         left-hand sides); ties to the lower satellite, then the lower cell id."""
-        vals = lhs_r[cols]
-        top = cols[vals == vals.max()]
-        top = top[rows.sat[r, top] == rows.sat[r, top].min()]
-        c = int(top[np.argmin(rows.cell[r, top])])
-        return Decision(t_ho, int(rows.sat[r, c]), "a3", rows.k0 + r, int(rows.cell[r, c]))
+        # a handful of candidates: plain Python on lists beats a dozen tiny numpy calls
+        cand = cols.tolist()
+        vals = lhs_r[cols].tolist()
+        if any(v != v for v in vals):         # NaN: numpy's ordering, as before
+            arr = np.asarray(vals)
+            cand = cols[arr == arr.max()].tolist()
+        else:
+            best = max(vals)
+            cand = [c for c, v in zip(cand, vals) if v == best]
+        sats = rows.sat[r].tolist()
+        low = min(sats[c] for c in cand)
+        cand = [c for c in cand if sats[c] == low]
+        cells = rows.cell[r].tolist()
+        c = min(cand, key=cells.__getitem__)   # the first of equal cell ids, as argmin
+        return Decision(t_ho, int(sats[c]), "a3", rows.k0 + r, int(cells[c]))
 
     # ---- naive reference -----------------------------------------------------------------------
     def step(self, rows: Rows, r: int, link: Link) -> Decision | None:
