@@ -287,18 +287,18 @@ def serving_stop(rows: Rows, r: int, cell: int, e0: float) -> float:
     """When ephemeris says the serving cell stops serving the terminal: the end of its
     satellite's floor pass or an earth-fixed cell's switch, by the cell at row r (the
     window end ``e0`` when the cell is not measured there)."""
-    hit = np.flatnonzero((rows.cell[r] == cell) & (rows.sat[r] >= 0))
-    if hit.size == 0:
-        return e0
-    c = int(hit[0])
-    return float(min(rows.pass_end_s[r, c], rows.cell_end_s[r, c]))
+    # one row of a few columns: a list scan (numpy's per-call cost dominates here)
+    for c, (ce, sa) in enumerate(zip(rows.cell[r].tolist(), rows.sat[r].tolist())):
+        if ce == cell and sa >= 0:
+            return float(min(rows.pass_end_s[r, c], rows.cell_end_s[r, c]))
+    return e0
 
 
 def serving_in_view(rows: Rows, r: int, sat: int, t_s: float) -> bool:
     """Is the serving satellite in view (a window of it open, with a measured cell) at t_s, by
     the cells of row r?  A handover command needs the serving link to reach the terminal."""
-    hit = (rows.sat[r] == sat) & (rows.start_s[r] <= t_s) & (t_s < rows.end_s[r])
-    return bool(hit.any())
+    return any(sa == sat and st <= t_s < en for sa, st, en in
+               zip(rows.sat[r].tolist(), rows.start_s[r].tolist(), rows.end_s[r].tolist()))
 
 
 def camping_lost_s(rows: Rows, col: np.ndarray, t_from_s: float, q_rxlevmin_dbm: float) -> float:
