@@ -592,7 +592,9 @@ class Execution:
     def record_sinr(self, rows: Rows, col: np.ndarray, t_from: float, t_to: float) -> None:
         """Serving SINR at the measurement instants in [t_from, t_to) where the serving cell
         is measured (into the run's histogram)."""
-        m = (rows.t_s >= t_from) & (rows.t_s < t_to) & (col >= 0)
-        if m.any():
-            rr = np.flatnonzero(m)
-            self.rec.sinr.add(rows.t_s[rr], rows.sinr_db[rr, col[rr]])
+        from .rlm import _row_values
+        # the instants in [t_from, t_to) are a slice of the sorted rows
+        a, b = np.searchsorted(rows.t_s, (t_from, t_to), side="left").tolist()
+        keep = col[a:b] >= 0
+        if keep.any():
+            self.rec.sinr.add(rows.t_s[a:b][keep], _row_values(rows, col)[a:b][keep])
