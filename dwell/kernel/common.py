@@ -186,39 +186,56 @@ class SinrHistogram:
         self.n_hours = max(1, math.ceil(duration_s / 3600.0 - 1e-9))
         self.n_bins = int(round((self.HI_DB - self.LO_DB) / self.STEP_DB)) + 2
         self._counts = np.zeros((self.n_hours, self.n_bins), dtype=np.int64)
-        self._pending: list[np.ndarray] = []     # flat bin indices not yet counted
+        # a link adds a few dozen values: they wait here and are binned and counted in bulk
+        # (the same bins, counts and sums as one by one, without a dozen numpy calls per link)
+        self._pending: list[tuple[np.ndarray, np.ndarray]] = []
         self._n_pending = 0
-        self.sum_db = 0.0
-        self.n = 0
+        self._sum_db = 0.0
+        self._n = 0
 
-    PENDING_MAX = 1 << 16     # count in bulk (one bincount) once this many values wait
+    PENDING_MAX = 1 << 16     # bin once this many values wait
 
     def add(self, t_s: np.ndarray, sinr_db: np.ndarray) -> None:
+        """Add values (kept by reference until binned: pass arrays nobody changes later)."""
         if t_s.size == 0:
             return
+        self._pending.append((np.asarray(t_s, dtype=float), np.asarray(sinr_db, dtype=float)))
+        self._n_pending += t_s.size
+        if self._n_pending >= self.PENDING_MAX:
+            self._flush()
+
+    def _flush(self) -> None:
+        if not self._pending:
+            return
+        t_s = np.concatenate([t for t, _ in self._pending])
+        sinr_db = np.concatenate([v for _, v in self._pending])
         h = np.minimum((t_s // 3600.0).astype(np.int64), self.n_hours - 1)
         b = np.minimum(np.maximum(np.floor((sinr_db - self.LO_DB) / self.STEP_DB).astype(np.int64)
                                   + 1, 0), self.n_bins - 1)
-        # a link adds a few dozen values: collected and counted in bulk, not np.add.at per link
-        self._pending.append(h * self.n_bins + b)
-        self._n_pending += h.size
-        if self._n_pending >= self.PENDING_MAX:
-            self._flush()
-        self.sum_db += float(np.sum(sinr_db))
-        self.n += int(sinr_db.size)
-
-    def _flush(self) -> None:
-        if self._pending:
-            flat = np.concatenate(self._pending)
-            self._counts += np.bincount(flat, minlength=self._counts.size).reshape(
-                self._counts.shape)
-            self._pending, self._n_pending = [], 0
+        self._counts += np.bincount(h * self.n_bins + b, minlength=self._counts.size).reshape(
+            self._counts.shape)
+        for _, v in self._pending:             # the sum in the order the values came
+            self._sum_db += float(np.sum(v))
+        self._n += int(sinr_db.size)
+        self._pending, self._n_pending = [], 0
 
     @property
     def counts(self) -> np.ndarray:
         """Values per (clock hour, bin)."""
         self._flush()
         return self._counts
+
+    @property
+    def sum_db(self) -> float:
+        """Exact sum of the values (for the mean)."""
+        self._flush()
+        return self._sum_db
+
+    @property
+    def n(self) -> int:
+        """Number of values."""
+        self._flush()
+        return self._n
 
     def edges_db(self) -> np.ndarray:
         """Lower edge of each bin (the first bin holds everything below LO_DB)."""

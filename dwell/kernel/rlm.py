@@ -145,11 +145,16 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
     # row interval k = [t_k, t_(k+1)) is plainly good if both ends are measured >= q_in and no
     # window end falls inside; the last row's interval is good only if that row is
     good = np.isfinite(v) & (v >= timing.q_in_db)
-    interval_good = good.copy()
-    interval_good[:-1] &= good[1:]
-    interval_good[:-1] &= ~((rows.t_s[:-1] < e0) & (e0 <= rows.t_s[1:]))
-    interval_good &= rows.t_s < e0
-    if interval_good.all():
+    # every interval is plainly good exactly when every row is and the window outlasts the
+    # rows (then no window end falls inside any interval): two checks, not the full mask
+    if float(rows.t_s[-1]) < e0 and good.all():
+        interval_good = None
+    else:
+        interval_good = good.copy()
+        interval_good[:-1] &= good[1:]
+        interval_good[:-1] &= ~((rows.t_s[:-1] < e0) & (e0 <= rows.t_s[1:]))
+        interval_good &= rows.t_s < e0
+    if interval_good is None or interval_good.all():
         # nothing doubtful (most calls: the link ends before its window does): every instant
         # is in-sync, and only the first keep_good of them are asked for
         idx = np.arange(i0, i1 if keep_good is None else min(i1, i0 + keep_good))
