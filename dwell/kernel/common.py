@@ -54,8 +54,9 @@ import numpy as np
 from ..policies.base import Decision, Policy, Rows, strongest_of_satellite
 from ..radio.cells import BEAM_STRIDE, ground_key, is_ground
 from ..radio.hardware import Hardware
-from ..radio.measure import MeasurementStream
-from ..radio.procedure import ProcedureSettings
+from ..radio.measure import MeasurementStream, row_at_or_after
+from ..radio.procedure import ProcedureSettings, timeline
+from .rlm import _row_values, cell_column, indications, quality_at_db
 
 PRIORITY = {"decision": 0, "switch": 1, "loss": 2, "rlf": 3, "end": 4}
 
@@ -408,7 +409,6 @@ class Execution:
         (common practice: the network prepares the cells the terminal reports)."""
         if not self.s.cho_recovery:
             return
-        from ..radio.measure import row_at_or_after
         k = min(row_at_or_after(t_s, self.s.period_s), self.stream.K - 1)
         rows = self.stream.rows(k, k + 1)
         self.prepared = {int(c) for c, q in zip(rows.cell[0].tolist(), rows.sat[0].tolist())
@@ -462,7 +462,6 @@ class Execution:
         decision are read from the stream.  A caller that already knows the serving link's
         first radio link failure up to some instant passes it (``rlf_s``,
         ``rlf_known_until_s``) and spares the procedure recomputing it."""
-        from ..radio.procedure import timeline
 
         hw = self.s.hardware
         ps = self.s.procedure
@@ -547,8 +546,6 @@ class Execution:
         fit for access when it completes, or access outlasts T304) or success, and when.
         ``known_rlf_s``: the serving link's first failure, when the caller knows it; ``held``:
         rows the caller holds, read instead of the stream when they cover what is needed."""
-        from ..radio.measure import row_at_or_after
-        from .rlm import cell_column, indications, quality_at_db
 
         s = self.s
         k_end = row_at_or_after(min(max(t_leave, t_done), s.duration_s), s.period_s) + 2
@@ -609,7 +606,6 @@ class Execution:
     def record_sinr(self, rows: Rows, col: np.ndarray, t_from: float, t_to: float) -> None:
         """Serving SINR at the measurement instants in [t_from, t_to) where the serving cell
         is measured (into the run's histogram)."""
-        from .rlm import _row_values
         # the instants in [t_from, t_to) are a slice of the sorted rows
         a, b = np.searchsorted(rows.t_s, (t_from, t_to), side="left").tolist()
         keep = col[a:b] >= 0
