@@ -143,7 +143,8 @@ class _GroupEvaluator:
         if site is None:
             return (rotate_z(self._r[:, None, :], c[None], s[None]),
                     rotate_z(self._up[:, None, :], c[None], s[None]))
-        return rotate_z(self._r[site], c, s), rotate_z(self._up[site], c, s)
+        return (rotate_z(np.take(self._r, site, axis=0), c, s),
+                rotate_z(np.take(self._up, site, axis=0), c, s))
 
     def elevation(self, key: np.ndarray, t_s: np.ndarray) -> np.ndarray:
         site, sat = self.split(key)
@@ -365,14 +366,17 @@ def find_windows_many(chunk: SkyChunk, sites: list[Site], earth: EarthOrientatio
     keep = np.ones((s_c.size, q + 1), dtype=bool)
     keep[:, -1] = ~cont_next
     run_of_cand = np.cumsum(np.concatenate([[True], ~cont_next[:-1]])) - 1
-    col = (i_c[:, None] * q + np.arange(q + 1)[None, :])[keep]       # fine-grid index
-    sat = np.broadcast_to(s_c[:, None], keep.shape)[keep]              # (site, satellite) keys
-    run = np.broadcast_to(run_of_cand[:, None], keep.shape)[keep]
+    kept_at = np.flatnonzero(keep)                   # the samples kept, as flat indices
+    cand, step = np.divmod(kept_at, q + 1)            # each one's candidate and sub-step
+    col = i_c[cand] * q + step                        # fine-grid index
+    sat = s_c[cand]                                   # (site, satellite) keys
+    run = run_of_cand[cand]
     t = fine_t[col]
     site_pos, site_up = ev.position_up(None, fine_t)                   # (sites, fine, 3)
     of = sat // n_sat
     at = of * fine_t.size + col                       # flat (site, fine instant) rows: np.take
-    f = elevation_deg(sub[keep], np.take(site_pos.reshape(-1, 3), at, axis=0),
+    kept = np.take(sub.reshape(-1, 3), kept_at, axis=0)               # = sub[keep]
+    f = elevation_deg(kept, np.take(site_pos.reshape(-1, 3), at, axis=0),
                       np.take(site_up.reshape(-1, 3), at, axis=0)) - ev.floor_deg[of]
     first = np.concatenate([[True], run[1:] != run[:-1]])
     last = np.concatenate([run[1:] != run[:-1], [True]])
