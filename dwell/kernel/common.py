@@ -194,7 +194,7 @@ class SinrHistogram:
         self._sum_db = 0.0
         self._n = 0
 
-    PENDING_MAX = 1 << 16     # bin once this many values wait
+    PENDING_MAX = 1 << 13     # bin once this many wait: 128 kB per terminal and policy at most
 
     def add(self, t_s: np.ndarray, sinr_db: np.ndarray) -> None:
         """Add values (kept by reference until binned: pass arrays nobody changes later)."""
