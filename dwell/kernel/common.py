@@ -51,12 +51,12 @@ from typing import Any
 
 import numpy as np
 
-from ..policies.base import Decision, Policy, Rows, strongest_of_satellite
+from ..policies.base import Decision, Policy, Rows, first_index, strongest_of_satellite
 from ..radio.cells import BEAM_STRIDE, ground_key, is_ground
 from ..radio.hardware import Hardware
 from ..radio.measure import MeasurementStream, row_at_or_after
 from ..radio.procedure import ProcedureSettings, timeline
-from .rlm import _row_values, cell_column, indications, quality_at_db
+from .rlm import indications, quality_at_db, serving_sinr_db
 
 PRIORITY = {"decision": 0, "switch": 1, "loss": 2, "rlf": 3, "end": 4}
 
@@ -467,15 +467,15 @@ class Execution:
         ps = self.s.procedure
         r = rows.row_at(d.time_s, self.s.period_s)
         row = rows.sat[r].tolist()
-        cf = row.index(self.link_sat) if self.link_sat in row else -1
-        ct = row.index(d.target) if d.target in row else -1
+        cf = first_index(row, self.link_sat)
+        ct = first_index(row, d.target)
         cells = rows.cell[r].tolist()
         to_cell = d.cell
         if to_cell < 0:
             best = strongest_of_satellite(rows.take(r, r + 1), d.target)[0]
             to_cell = int(rows.cell[r, best]) if best >= 0 else d.target * BEAM_STRIDE
-        pf = cells.index(self.link_cell) if self.link_cell in cells else -1
-        pt = cells.index(to_cell) if to_cell in cells else -1
+        pf = first_index(cells, self.link_cell)
+        pt = first_index(cells, to_cell)
         if pt >= 0:
             to_beam = int(rows.beam[r, pt])
         else:
@@ -574,7 +574,7 @@ class Execution:
         else:
             rows = self.stream.rows(k_lo, k_hi)
         r = rows.row_at(t_done)
-        c = cell_column(rows, r, to_cell)
+        c = rows.cell_column_at(r, to_cell)
         if c < 0:
             return "failure", t_hof
         q = quality_at_db(rows, to_cell, t_done, float(rows.end_s[r, c]))
@@ -610,4 +610,4 @@ class Execution:
         a, b = np.searchsorted(rows.t_s, (t_from, t_to), side="left").tolist()
         keep = col[a:b] >= 0
         if keep.any():
-            self.rec.sinr.add(rows.t_s[a:b][keep], _row_values(rows, col)[a:b][keep])
+            self.rec.sinr.add(rows.t_s[a:b][keep], serving_sinr_db(rows, col)[a:b][keep])

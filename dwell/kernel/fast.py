@@ -14,7 +14,7 @@ import math
 import numpy as np
 import simpy
 
-from ..policies.base import Decision, Link, Policy
+from ..policies.base import Decision, Link, Policy, first_index
 from ..radio.measure import row_at_or_after
 from .common import (PRIORITY, Execution, KernelRun, camping_lost_s, cell_switch, first_rlf_s,
                      select_among, serving_in_view, serving_stop, suitable)
@@ -122,8 +122,7 @@ class FastRun(KernelRun):
         while True:
             rows = self.stream.rows(kc, kc + n)
             if e0 is None:
-                row0 = rows.sat[0].tolist()      # row 0 only (column_of would scan all)
-                c0 = row0.index(sat) if sat in row0 else -1
+                c0 = first_index(rows.sat[0].tolist(), sat)   # row 0 only, not column_of
                 if c0 >= 0 and rows.start_s[0, c0] <= t_c:
                     e0 = float(rows.end_s[0, c0])     # the window open at row kc covers t_c
                 else:

@@ -43,7 +43,7 @@ class RlmTiming:
                    float(link_params["q_in_sinr_db"]))
 
 
-def _row_values(rows: Rows, col: np.ndarray) -> np.ndarray:
+def serving_sinr_db(rows: Rows, col: np.ndarray) -> np.ndarray:
     """The serving cell's SINR per row (-inf where unmeasured), cached with the rows when
     ``col`` is one of their cached columns (the caches hold ``col``, so its identity is safe);
     several monitors read it for each link."""
@@ -61,7 +61,7 @@ def _row_values(rows: Rows, col: np.ndarray) -> np.ndarray:
 def quality_db(rows: Rows, col: np.ndarray, t: np.ndarray, e0: float) -> np.ndarray:
     """The serving cell's quality (dB) at instants ``t`` (within the rows' span)."""
     t = np.asarray(t, dtype=float)
-    v = _row_values(rows, col)
+    v = serving_sinr_db(rows, col)
     k = np.minimum(np.maximum(np.searchsorted(rows.t_s, t, side="right") - 1, 0), rows.n - 1)
     vk = v[k]
     nxt = np.minimum(k + 1, rows.n - 1)
@@ -76,22 +76,16 @@ def quality_db(rows: Rows, col: np.ndarray, t: np.ndarray, e0: float) -> np.ndar
     return np.where((t >= e0) & (tk < e0), -np.inf, out)
 
 
-def cell_column(rows: Rows, r: int, cell: int) -> int:
-    """Column of ``cell`` in row r (the first, as :meth:`Rows.column_of_cell` has it), or -1."""
-    row = rows.cell[r].tolist()          # a list scan: far cheaper than numpy on ~10 columns
-    return row.index(cell) if cell in row else -1
-
-
 def quality_at_db(rows: Rows, cell: int, t: float, e0: float) -> float:
     """:func:`quality_db` of cell ``cell`` at the one instant ``t``: the same arithmetic on two
     rows instead of whole-row arrays (the kernel asks this once per handover)."""
     n = rows.n
     k = min(max(int(np.searchsorted(rows.t_s, t, side="right")) - 1, 0), n - 1)
-    c = cell_column(rows, k, cell)
+    c = rows.cell_column_at(k, cell)
     vk = float(rows.sinr_db[k, c]) if c >= 0 else -math.inf
     vn = -math.inf
     if k + 1 < n:
-        c1 = cell_column(rows, k + 1, cell)
+        c1 = rows.cell_column_at(k + 1, cell)
         vn = float(rows.sinr_db[k + 1, c1]) if c1 >= 0 else -math.inf
     tk = float(rows.t_s[k])
     out = vk
@@ -141,24 +135,21 @@ def indications(rows: Rows, col: np.ndarray, t_from: float, t_to: float, t_c: fl
     if i1 == i0:
         z = np.zeros(0)
         return z, np.zeros(0, bool), np.zeros(0, bool)
-    v = _row_values(rows, col)
+    v = serving_sinr_db(rows, col)
     # row interval k = [t_k, t_(k+1)) is plainly good if both ends are measured >= q_in and no
     # window end falls inside; the last row's interval is good only if that row is
     good = np.isfinite(v) & (v >= timing.q_in_db)
     # every interval is plainly good exactly when every row is and the window outlasts the
-    # rows (then no window end falls inside any interval): two checks, not the full mask
+    # rows (then no window end falls inside any interval).  Then nothing is doubtful (most
+    # calls: the link ends before its window does): every instant is in-sync, and only the
+    # first keep_good of them are asked for
     if float(rows.t_s[-1]) < e0 and good.all():
-        interval_good = None
-    else:
-        interval_good = good.copy()
-        interval_good[:-1] &= good[1:]
-        interval_good[:-1] &= ~((rows.t_s[:-1] < e0) & (e0 <= rows.t_s[1:]))
-        interval_good &= rows.t_s < e0
-    if interval_good is None or interval_good.all():
-        # nothing doubtful (most calls: the link ends before its window does): every instant
-        # is in-sync, and only the first keep_good of them are asked for
         idx = np.arange(i0, i1 if keep_good is None else min(i1, i0 + keep_good))
         return idx * T, np.zeros(idx.size, bool), np.ones(idx.size, bool)
+    interval_good = good.copy()
+    interval_good[:-1] &= good[1:]
+    interval_good[:-1] &= ~((rows.t_s[:-1] < e0) & (e0 <= rows.t_s[1:]))
+    interval_good &= rows.t_s < e0
     w = max(timing.evaluation_out_s, timing.evaluation_in_s)
     # instants whose windows touch a doubtful interval: [t_k, t_(k+1) + w) for each bad k
     bad = np.flatnonzero(~interval_good)
@@ -273,7 +264,7 @@ def weak_intervals(rows: Rows, col: np.ndarray, t_from: float, t_to: float, e0: 
     """Where the serving satellite is in view but its cell's quality is below ``q_out_db``
     (unmeasured included), within [t_from, t_to): exact crossings of the interpolated quality,
     so the outage it causes does not depend on the row period."""
-    v = _row_values(rows, col)
+    v = serving_sinr_db(rows, col)
     if np.all(v >= q_out_db):       # measured and at or above q_out everywhere: none (the
         return []                   # general pass below finds none either, row by row)
     out: list[tuple[float, float]] = []

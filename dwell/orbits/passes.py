@@ -313,7 +313,7 @@ def _screen(chunk: SkyChunk, site: Site, earth: EarthOrientation, opts: PassOpti
     # arccos, so the exact test runs on those few intervals only
     # (1e-9 rad of margin: the cosine and arccos roundings can never drop a candidate)
     widest = gmax + slack + 1e-9
-    near = np.where(widest < np.pi, np.cos(np.minimum(widest, np.pi)), -np.inf)[:, None]
+    near = np.where(widest < np.pi, np.cos(widest), -np.inf)[:, None]
     maybe = np.flatnonzero((np.maximum(cosg[:, :-1], cosg[:, 1:]) >= near) &
                            chunk.valid[:, None])
     s, i = np.divmod(maybe, grid.size - 1)

@@ -73,6 +73,12 @@ def warn_if_not_in(value_s: float, allowed_ms: tuple[int, ...], source: str, whe
              f"({', '.join(str(a) for a in allowed_ms)} ms); used as given")
 
 
+def first_index(values: list, value: Any) -> int:
+    """Position of the first ``value`` in ``values``, or -1.  The hot paths scan one row's
+    few columns as a Python list: cheaper than numpy's per-call cost there."""
+    return values.index(value) if value in values else -1
+
+
 @dataclass
 class Rows:
     """Measurement rows ``k0 .. k0 + R - 1`` of one terminal (see the module docstring)."""
@@ -142,6 +148,11 @@ class Rows:
             col = np.where(hit[np.arange(self.n), col], col, -1)
             self._cols[(kind, value)] = col
         return col
+
+    def cell_column_at(self, r: int, cell: int) -> int:
+        """Column of cell ``cell`` in row r alone (the first, as :meth:`column_of_cell` has
+        it), or -1: a list scan of one row, for the hot paths that need one instant."""
+        return first_index(self.cell[r].tolist(), cell)
 
     def take(self, a: int, b: int) -> "Rows":
         """Rows a..b-1 of these rows as a new Rows (views, not copies)."""
