@@ -182,14 +182,19 @@ def map_and_areas(scen: Scenario, summary: pd.DataFrame) -> dict[str, pd.DataFra
                                             [p["name"] for p in scen.policies])}
 
 
+def _count(n: int, one: str, many: str | None = None) -> str:
+    return f"{n} {one if n == 1 else (many or one + 's')}"
+
+
 def summary_text(scen: Scenario, summary: pd.DataFrame) -> str:
     cols = {"terminal": "terminal", "policy": "policy", "handovers_per_hour": "HO/h",
             "worst_hour_handovers": "worst h", "dwell_mean_s": "dwell mean s",
             "dwell_median_s": "dwell med s", "outage_fraction": "outage",
             "ping_pong_rate": "ping-pong", "radio_link_failures": "RLF",
             "slew_mean_deg": "slew deg", "switching_s": "switch s"}
-    head = (f"scenario {scen.scenario['name']}: {len(scen.constellation)} satellites, "
-            f"{len(scen.terminals)} terminals, {len(scen.policies)} policies, "
+    head = (f"scenario {scen.scenario['name']}: {_count(len(scen.constellation), 'satellite')}, "
+            f"{_count(len(scen.terminals), 'terminal')}, "
+            f"{_count(len(scen.policies), 'policy', 'policies')}, "
             f"{float(scen.scenario['duration_s']) / 3600:g} h from {scen.scenario['start']}")
     if not scen.areas:
         return head + "\n" + format_table(summary, cols) + "\n"

@@ -69,7 +69,8 @@ def _utc(value: Any) -> str | None:
 SCENARIO_KEYS: dict[str, Field] = {
     "start": Field((str,), REQUIRED, (_utc,), "scenario start, ISO-8601 UTC"),
     "duration_s": number(REQUIRED, gt(0), le(366 * 86400), doc="scenario length"),
-    "name": label("scenario", doc="label carried into the outputs"),
+    "name": label("scenario", doc="label carried into the outputs (default: the config "
+                  "file's name without its extension)"),
     "seed": Field((int,), 0, (ge(0),), "seed for every stochastic part of the run"),
     "earth_rotation": flag(True, doc="false freezes the Earth (analytic studies)"),
     "earth": text("wgs84", choices=("wgs84", "sphere"),
@@ -246,6 +247,9 @@ def load_scenario(path: str | Path, *, warn: Callable[[str], None] | None = None
     policies); otherwise their files must exist and their parameters stay unchecked."""
     path = Path(path)
     raw = read_toml(path)
+    if isinstance(raw.get("scenario"), dict) and "name" not in raw["scenario"]:
+        # a run is labelled after its file unless it says otherwise ("scenario" says nothing)
+        raw["scenario"] = {**raw["scenario"], "name": path.stem or "scenario"}
     return scenario_from_dict(raw, str(path), path.resolve().parent, warn=warn, build=build,
                               load_plugins=load_plugins)
 
