@@ -9,7 +9,9 @@ the rewritten pieces to what they stand for, independently of the code they repl
 - the in-place quintic Hermite weights interpolate any polynomial of degree 5 exactly from its
   values and first two derivatives at the ends (a handbook property of Hermite interpolation;
   numpy.polynomial is the reference);
-- the sort helper of the measurement build returns numpy's lexsort (or says the order holds).
+- the sort helper of the measurement build returns numpy's lexsort (or says the order holds);
+- the row lookup's guess from the grid spacing returns what numpy.searchsorted returns, for
+  regular and irregular instants, any period hint and instants off, on and around the rows.
 
 The rewritten kernel paths (A3's pick, the RLM fast path, the scalar quality) are held by the
 event kernel's agreement with the naive one, which implements the rules independently
@@ -23,6 +25,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.polynomial import Polynomial
 
+from dwell.policies.base import Rows
 from dwell.orbits.sky import _hermite_rate_weights, _hermite_weights
 from dwell.radio.measure import _lexsort
 from dwell.radio.noise import _mix
@@ -72,3 +75,23 @@ def test_lexsort_helper_is_numpys_lexsort(n_levels, n_keys, presorted, rnd):
     got = _lexsort(keys)
     ref = np.lexsort(keys) if n else np.zeros(0, np.int64)
     assert np.array_equal(np.arange(n) if got is None else got, ref)
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.integers(1, 40), st.floats(0.05, 5.0), st.integers(0, 10 ** 6), st.booleans(),
+       st.sampled_from([None, "true", "wrong"]), st.floats(-10.0, 250.0),
+       st.randoms(use_true_random=False))
+def test_row_lookup_is_searchsorted(n, period_s, k0, jitter, hint, t_probe, rnd):
+    # numpy.searchsorted(side="right") - 1, clipped to the rows: the latest row at or before t
+    t = (k0 + np.arange(n)) * period_s
+    if jitter:        # irregular instants: the guess is wrong and must fall back
+        t = np.sort(t + np.array([rnd.uniform(-0.4, 0.4) * period_s for _ in range(n)]))
+    sat = np.zeros((n, 1), dtype=np.int64)
+    z = np.zeros((n, 1))
+    rows = Rows(k0, t, sat, sat, z, z, z, z, z, z, z, z)
+    period = {None: None, "true": period_s, "wrong": 1.7 * period_s}[hint]
+    probes = [float(t[0]) + t_probe, float(t[rnd.randrange(n)]),
+              np.nextafter(float(t[rnd.randrange(n)]), -np.inf), -np.inf, np.inf]
+    for tp in probes:
+        want = min(max(int(np.searchsorted(t, tp, side="right")) - 1, 0), n - 1)
+        assert rows.row_at(tp, period) == want

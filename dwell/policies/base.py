@@ -167,8 +167,19 @@ class Rows:
     def row_at(self, t_s: float, period_s: float | None = None) -> int:
         """Index of the latest row at or before t_s, by exact comparison with the row instants
         (clipped to the rows held)."""
-        r = int(np.searchsorted(self.t_s, t_s, side="right")) - 1
-        return min(max(r, 0), self.n - 1)
+        t = self.t_s
+        n = t.size
+        if n > 1:
+            # rows sit on a regular grid: guess from the spacing, then settle by comparing
+            # with the instants themselves (exact; a scalar searchsorted costs 10x more)
+            t0 = float(t[0])
+            dt = period_s or float(t[1]) - t0
+            if t0 <= t_s < math.inf and dt > 0:
+                g = int((t_s - t0) / dt)
+                if g < n - 1 and float(t[g]) <= t_s < float(t[g + 1]):
+                    return g
+        r = int(np.searchsorted(t, t_s, side="right")) - 1
+        return min(max(r, 0), n - 1)
 
 
 _ROW_ARRAYS = ("sat", "win", "rsrp_dbm", "snr_db", "elevation_deg", "azimuth_deg", "range_km",
