@@ -204,7 +204,9 @@ class MeasurementStream:
         if not self.buf or used + nb > cap or width > have_w:
             keep = max(0, min(self.pin, k_a) - self.buf_k0) if self.buf else 0
             live = used - keep
-            new_cap = max(2 * (live + nb), 4 * self.B)
+            # never more rows than remain to the scenario's end (a reader that keeps every
+            # row would otherwise get a buffer twice the run, every page of it touched)
+            new_cap = min(max(2 * (live + nb), 4 * self.B), self.K - (self.buf_k0 + keep))
             new_w = max(width, have_w)
             new = {}
             for f in FIELDS:
