@@ -11,12 +11,11 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pandas as pd
 import tomli_w
 
 from dwell.io.config import load_scenario, scenario_from_dict
 from dwell.run import summary_text
-
-import pandas as pd
 
 BASE = {"scenario": {"start": "2027-05-10T00:00:00Z", "duration_s": 600.0},
         "constellation": [{"kind": "walker-delta", "name": "finch", "satellites": 1,

@@ -80,7 +80,7 @@ def quality_at_db(rows: Rows, cell: int, t: float, e0: float) -> float:
     """:func:`quality_db` of cell ``cell`` at the one instant ``t``: the same arithmetic on two
     rows instead of whole-row arrays (the kernel asks this once per handover)."""
     n = rows.n
-    k = min(max(int(np.searchsorted(rows.t_s, t, side="right")) - 1, 0), n - 1)
+    k = rows.row_at(t)
     c = rows.cell_column_at(k, cell)
     vk = float(rows.sinr_db[k, c]) if c >= 0 else -math.inf
     vn = -math.inf

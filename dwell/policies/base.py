@@ -166,7 +166,8 @@ class Rows:
 
     def row_at(self, t_s: float, period_s: float | None = None) -> int:
         """Index of the latest row at or before t_s, by exact comparison with the row instants
-        (clipped to the rows held)."""
+        (clipped to the rows held).  ``period_s`` only speeds the first guess; a wrong one
+        costs a search, never a wrong row."""
         t = self.t_s
         n = t.size
         if n > 1:
