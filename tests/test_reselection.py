@@ -135,12 +135,12 @@ HEX = {**SHELL, "beams": {"layout": "hex", "rings": 2, "reuse": 3}}
 NOISY = {"measurement_noise_db": 1.0, "shadowing_std_db": 2.0, "shadowing_decorrelation_s": 8}
 
 
-def _scenario(policies, constellation=SHELL, link=NOISY, duration_s=3600.0):
+def _scenario(policies, constellation=SHELL, link=NOISY, duration_s=3600.0, **terminal_keys):
     raw = {"scenario": {"start": "2027-05-10T00:00:00Z", "duration_s": duration_s, "seed": 3,
                         "measurement_period_s": DT},
            "constellation": [constellation],
            "terminal": [{"name": "plain", "lat_deg": 44.0, "lon_deg": 9.0,
-                         "min_elevation_deg": 25.0}],
+                         "min_elevation_deg": 25.0, **terminal_keys}],
            "link": link, "policy": policies}
     return scenario_from_dict(raw, "t.toml", Path("."))
 
@@ -194,3 +194,29 @@ def test_bad_keys(key, value):
     with pytest.raises(InputError) as e:
         _scenario([{"name": "r", "rule": "reselection", key: value}], duration_s=60.0)
     assert key in str(e.value) and "t.toml" in str(e.value)
+
+
+def test_camping_loss_is_followed_by_cell_selection_not_reestablishment():
+    # TS 38.331 5.3.7 (re-establishment, T311) applies in RRC_CONNECTED only; an idle terminal
+    # that finds no suitable cell is out of service until cell selection finds one (TS 38.304
+    # 5.2.3 and 5.2.8, "any cell selection") and camps once it has read the cell's system
+    # information: here the terminal's interruption_s.  A sparse shell leaves gaps in view.
+    sparse = {**SHELL, "satellites": 120, "planes": 12}
+    pols = [{"name": f"r{i}", "rule": "reselection", "reestablishment_s": ree}
+            for i, ree in enumerate((0.5, 3.0))]
+    scen = _scenario(pols, sparse, duration_s=3 * 3600.0, interruption_s=0.2)
+    fast = run_scenario(scen, kernel="fast")[0]
+    naive = run_scenario(scen, kernel="naive")[0]
+    rec = fast[0].records
+    assert rec.failures, "the sparse shell should leave the terminal without a suitable cell"
+    after_loss = [link for link in rec.links if link[4] not in ("initial", "handover")]
+    assert len(after_loss) == len(rec.failures) or len(after_loss) == len(rec.failures) - 1
+    assert {link[4] for link in after_loss} == {"selection"}
+    for link, lost in zip(after_loss, rec.failures):
+        found = link[2] - 0.2                    # the measurement instant a cell was suitable
+        assert found >= lost
+        assert found / DT == pytest.approx(round(found / DT), abs=1e-6)
+    assert rec.idle == []                        # no T311 in idle mode: never "went idle"
+    # reestablishment_s is a connected-mode key: it changes nothing here
+    assert fast[1].records.signature() == rec.signature()
+    assert naive[0].records.signature() == rec.signature()

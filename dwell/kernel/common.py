@@ -6,7 +6,9 @@ Execution model of one terminal under one policy (both kernels implement exactly
 - Down (at the start, after a radio link failure or handover failure): at the first
   measurement instant with a suitable cell (RSRP above ``q_rxlevmin_dbm``, SINR at or above
   Q_out) the policy selects one; the link starts then (initial access) or after
-  ``reestablishment_s`` (re-establishment while T311 runs, else a new setup from idle).
+  ``reestablishment_s`` (re-establishment while T311 runs, else a new setup from idle); an
+  idle-mode terminal camps after ``interruption_s`` instead (cell selection, start reason
+  "selection"; :meth:`RunSettings.back_in_service`).
 - Up on cell c of satellite s: radio link monitoring on the TS 38.133 cadence
   (:mod:`dwell.kernel.rlm`): an indication every ``rlm_indication_s``, out-of-sync when the
   SINR averaged over the last ``rlm_evaluation_out_s`` is below ``q_out_sinr_db`` (or c is not
@@ -141,6 +143,26 @@ class RunSettings:
                    ProcedureSettings.of({**p, "procedure": "instant"} if policy.idle else p,
                                         link_params),
                    bool(policy.idle), bool(getattr(policy, "recovers_by_cho", False)))
+
+    def back_in_service(self, t_found_s: float, t_lost_s: float) -> tuple[str, float]:
+        """How service resumes at ``t_found_s``, the first instant with a suitable cell after the
+        loss at ``t_lost_s``: the start reason and the delay before the new link starts.
+
+        Connected: re-establishment while T311 runs (TS 38.331 5.3.7), else a new connection set
+        up from idle; both take ``reestablishment_s``.  Idle mode has neither: the terminal is
+        out of service until cell selection finds a suitable cell (TS 38.304 5.2.3, 5.2.8) and
+        camps once it has read that cell's system information, the ``interruption_s`` a
+        reselection takes too."""
+        if self.idle:
+            return "selection", self.hardware.interruption_s
+        if t_found_s < t_lost_s + self.t311_s:
+            return "reestablishment", self.reestablishment_s
+        return "setup", self.reestablishment_s
+
+    def went_idle(self, t_lost_s: float) -> bool:
+        """T311 expired inside the scenario after a loss at ``t_lost_s``: a connected terminal
+        went idle (TS 38.331 5.3.7.8).  An idle-mode terminal has no T311."""
+        return not self.idle and t_lost_s + self.t311_s < self.duration_s
 
 
 @dataclass

@@ -46,7 +46,7 @@ class FastRun(KernelRun):
         while True:
             found = self._acquire(t, initial)
             if found is None:
-                if not initial and t + self.s.t311_s < self.s.duration_s:
+                if not initial and self.s.went_idle(t):
                     self.ex.rec.idle.append(t + self.s.t311_s)    # T311 ran out: idle
                 break
             (sat, cell, beam), t_link, reason = found
@@ -80,8 +80,8 @@ class FastRun(KernelRun):
 
     def _acquire(self, t_from: float, initial: bool):
         """First measurement instant at or after t_from with a suitable cell, and how the link
-        comes about: initial access; re-establishment while T311 runs (TS 38.331 5.3.7);
-        after T311 has expired, a new connection set up from idle."""
+        comes about: initial access, a prepared CHO candidate, or
+        :meth:`RunSettings.back_in_service` (re-establishment, setup, idle-mode selection)."""
         k = self._row(t_from)
         n = FIRST_ROWS
         s = self.s
@@ -99,8 +99,7 @@ class FastRun(KernelRun):
                 elif recovered is not None:
                     reason, delay = recovered
                 else:
-                    reason = "reestablishment" if t_r < t_from + s.t311_s else "setup"
-                    delay = s.reestablishment_s
+                    reason, delay = s.back_in_service(t_r, t_from)
                 return (int(rows.sat[r, col]), int(rows.cell[r, col]), int(rows.beam[r, col])), \
                     t_r + delay, reason
             k += rows.n

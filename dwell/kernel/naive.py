@@ -61,8 +61,8 @@ class NaiveRun(KernelRun):
             elif recovered is not None:
                 reason, t_link = recovered[0], t_k + recovered[1]
             else:
-                reason = "reestablishment" if t_k < t_fail + s.t311_s else "setup"
-                t_link = t_k + s.reestablishment_s
+                reason, delay = s.back_in_service(t_k, t_fail)
+                t_link = t_k + delay
                 if reason == "setup":
                     ex.rec.idle.append(t_fail + s.t311_s)
             if t_link >= s.duration_s:
@@ -94,7 +94,7 @@ class NaiveRun(KernelRun):
                     return
                 ex.open_next(t_next)
         else:
-            if not initial and t_fail + s.t311_s < s.duration_s:
+            if not initial and s.went_idle(t_fail):
                 ex.rec.idle.append(t_fail + s.t311_s)    # T311 ran out: idle
         self.stream.release(K, self)
 

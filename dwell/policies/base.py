@@ -52,7 +52,8 @@ COMMON_KEYS: dict[str, Field] = {
     "n311": integer(1, ge(1), doc="consecutive in-sync indications that stop T310"),
     "t310_s": number(1.0, between(0, 6), doc="radio link failure timer (TS 38.331: 0-6000 ms)"),
     "reestablishment_s": number(0.5, ge(0), doc="time to re-establish after a radio link failure "
-                                "(or to set up a connection again from idle)"),
+                                "(or to set up a connection again from idle); connected-mode "
+                                "rules only"),
     "t311_s": number(3.0, between(0, 30), doc="T311: how long the terminal looks for a suitable "
                      "cell to re-establish on before it goes idle (TS 38.331: 1000-30000 ms)"),
     "q_rxlevmin_dbm": number(-140.0, between(-160, -20), doc="Qrxlevmin of the S-criterion: the "
