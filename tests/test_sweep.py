@@ -282,3 +282,25 @@ def test_failing_run_is_recorded_and_the_sweep_goes_on(tmp_path):
 def test_failing_run_with_plugin_path_relative_to_config(tmp_path):
     assert Path.cwd() != tmp_path
     _check_failing_sweep(_failing_sweep(tmp_path, "bad.py:Broken"), tmp_path / "out")
+
+
+def test_a_task_of_many_batches_writes_the_same_tables(tmp_path, monkeypatch):
+    # A task of more terminals than one batch (an area) keeps its per-event tables in parts on
+    # disk, not in memory (README, Areas: "memory does not grow with the population"); the
+    # run folders it writes must not depend on that (the README's contract that the tables do
+    # not depend on how the terminals are split).  Batches of one terminal force the parts.
+    import dwell.run
+    from dwell.sweep.execute import execute_sweep
+
+    def files(folder: Path) -> dict[str, bytes]:
+        return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*"))
+                if p.is_file() and p.suffix in (".parquet", ".toml") and p.name != "_sweep.toml"}
+
+    plan = load_sweep(_sweep_file(tmp_path, seeds=[1], duration_s=1200))
+    execute_sweep(plan, tmp_path / "whole")
+    monkeypatch.setattr(dwell.run, "TERMINAL_BATCH", 1)
+    execute_sweep(plan, tmp_path / "parts")
+    whole, parts = files(tmp_path / "whole"), files(tmp_path / "parts")
+    assert any(name.startswith("_runs") for name in whole)
+    assert whole.keys() == parts.keys()
+    assert [n for n in whole if whole[n] != parts[n]] == []

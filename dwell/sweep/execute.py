@@ -20,7 +20,8 @@ so an edited mask, element set, track or plug-in gives new runs; a folder holdin
 
 Locally every task runs in a forked process of its own (:mod:`dwell.io.processes`): a task
 that runs out of memory, or whose process dies otherwise, is recorded in ``_failed/`` and the
-sweep goes on; workers die with the sweep.
+sweep goes on; workers die with the sweep.  A task of more than one batch of terminals (an
+area) keeps its per-event tables in anonymous part files (:mod:`dwell.io.parts`), not in memory.
 """
 
 from __future__ import annotations
@@ -77,13 +78,17 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
     """Run every policy of one task on one geometry pass; write each run's outputs.
 
     ``runs`` are plain dicts (picklable for process pools and clusters).  Returns
-    (run key, "done" | "failed", message) per run.
+    (run key, "done" | "failed", message) per run.  A task of more than one batch of terminals
+    (an area) stores its per-event tables part by part (:mod:`dwell.io.parts`) and writes each
+    run's tables from the parts, so its memory does not grow with the population.
     """
     from ..io.config import scenario_from_dict
-    from ..io.tables import write_frame
-    from ..run import run_tables, run_toml
+    from ..io.parts import FrameSource, TableParts
+    from ..io.tables import provenance, write_frame, write_tables
+    from ..run import TERMINAL_BATCH, run_tables, run_toml
 
     out = Path(out_dir)
+    parts = None
     try:
         combined = copy.deepcopy(runs[0]["scenario"])
         policies, owner = [], {}
@@ -100,37 +105,65 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
 
         scen = scenario_from_dict(combined, "sweep task", Path(base_dir), warn=warn,
                                   load_plugins=True)
-        frames = run_tables(scen, check=True, warn=warn).frames    # terminals in batches
+        if len(scen.terminals) > TERMINAL_BATCH:
+            parts = TableParts(out)                 # anonymous files: gone however this ends
+            frames = run_tables(scen, check=True, warn=warn, parts=parts.store()).frames
+            source, schema_of = parts, parts.schema
+        else:
+            frames = run_tables(scen, check=True, warn=warn).frames
+            source, schema_of = FrameSource(frames), lambda name: None  # as written before
         with atomic_dir(out / "_tasks" / task_key) as tmp:
             for name in TASK_TABLES:
-                write_frame(frames[name], tmp / f"{name}.parquet", scen)
+                write_tables(source.tables(name), tmp / f"{name}.parquet", epoch=scen.epoch,
+                             metadata=provenance(scen), schema=source.schema(name))
         status = []
         for j, r in enumerate(runs):
-            mine = [k for k, (jj, _) in owner.items() if jj == j]
+            mine = {k: name for k, (jj, name) in owner.items() if jj == j}
             run_scen = scenario_from_dict(copy.deepcopy(r["scenario"]), "sweep run", Path(base_dir),
                                           load_plugins=True)
             with atomic_dir(out / "_runs" / r["key"]) as tmp:
                 for name in RUN_TABLES:
-                    df = frames[name]
-                    df = df[df["policy"].astype(str).isin(mine)].copy()
-                    df["policy"] = df["policy"].astype(str).map(lambda k: owner[k][1])
-                    write_frame(df.reset_index(drop=True), tmp / f"{name}.parquet", run_scen)
+                    rows = _runs_rows(frames[name] if name == "summary" else source.tables(name),
+                                      mine)
+                    write_tables(rows, tmp / f"{name}.parquet", epoch=run_scen.epoch,
+                                 metadata=provenance(run_scen),
+                                 schema=None if name == "summary" else schema_of(name))
                 (tmp / "run.toml").write_text(run_toml(run_scen, out / "_runs" / r["key"]))
-            summ = frames["summary"]
-            summ = summ[summ["policy"].astype(str).isin(mine)].copy()
-            summ["policy"] = summ["policy"].astype(str).map(lambda k: owner[k][1])
+            summ = _of_run(frames["summary"], mine)
             for key, col in columns.items():
                 value = r["params"].get(key)
                 summ[col] = value if not isinstance(value, (list, dict)) else json.dumps(value)
             summ["run_key"] = r["key"]
             summ["task_key"] = task_key
-            write_frame(summ.reset_index(drop=True), out / f"summary-{r['key']}.parquet", run_scen,
+            write_frame(summ, out / f"summary-{r['key']}.parquet", run_scen,
                         {"dwell.sweep_params": json.dumps(r["params"], default=str)})
             status.append((r["key"], "done", ""))
             (out / "_failed" / f"{r['key']}.json").unlink(missing_ok=True)
         return status
     except Exception as exc:  # a failing run must not stop the sweep: record it
         return record_failure(out, runs, f"{type(exc).__name__}: {exc}")
+    finally:
+        if parts is not None:
+            parts.close()
+
+
+def _of_run(df: pd.DataFrame, mine: dict[str, str]) -> pd.DataFrame:
+    """The rows of one run's policies (named internally in the task), under their own names."""
+    df = df[df["policy"].astype(str).isin(list(mine))].copy()
+    df["policy"] = df["policy"].astype(str).map(mine)
+    return df.reset_index(drop=True)
+
+
+def _runs_rows(tables, mine: dict[str, str]):
+    """One run's rows of a table given as a frame or as Arrow parts (:mod:`dwell.io.parts`),
+    as Arrow parts: the same rows and types either way (parts round-trip their frames)."""
+    from ..io.tables import arrow_columns
+
+    if isinstance(tables, pd.DataFrame):
+        yield arrow_columns(_of_run(tables, mine))
+        return
+    for table in tables:
+        yield arrow_columns(_of_run(table.to_pandas(), mine))
 
 
 def record_failure(out: Path, runs: list[dict], msg: str) -> list[tuple[str, str, str]]:
