@@ -304,3 +304,28 @@ def test_a_task_of_many_batches_writes_the_same_tables(tmp_path, monkeypatch):
     assert any(name.startswith("_runs") for name in whole)
     assert whole.keys() == parts.keys()
     assert [n for n in whole if whole[n] != parts[n]] == []
+
+
+def test_scenario_warnings_are_said_once_naming_the_sweep_file_and_policy(tmp_path):
+    # A sweep's runs share their base's warnings (here the default time-to-trigger, 0.32 s,
+    # below the 1 s measurement period): each is said once, when the sweep is checked, naming
+    # the sweep file and the policy by its name, not once per task with the task's internal
+    # policy numbers (common practice: a warning names what the user wrote, once).
+    base = tmp_path / "base.toml"
+    base.write_text(tomli_w.dumps({
+        "scenario": {"start": "2027-05-10T00:00:00Z", "duration_s": 600, "seed": 1},
+        "constellation": [{"kind": "walker-delta", "name": "wren", "satellites": 300,
+                           "planes": 20, "phasing": 1, "altitude_km": 560,
+                           "inclination_deg": 53.5}],
+        "terminal": [{"name": "mill-field", "lat_deg": 47.6, "lon_deg": 9.2,
+                      "min_elevation_deg": 25}],
+        "policy": [{"name": "eager", "rule": "a3"}, {"name": "calm", "rule": "a3",
+                                                      "time_to_trigger_s": 1.28}]}))
+    sweep = tmp_path / "seeds.toml"
+    sweep.write_text(tomli_w.dumps({"sweep": {"base": str(base), "name": "seeds"},
+                                    "axis": [{"key": "scenario.seed", "values": [1, 2, 3]}]}))
+    proc = _dwell("sweep", str(sweep), "-o", str(tmp_path / "out"), "--workers", "2")
+    ttt = [line for line in proc.stderr.splitlines() if "time_to_trigger_s" in line]
+    assert len(ttt) == 1, proc.stderr
+    assert ttt[0].startswith(f"warning: {sweep}") and 'policy "eager"' in ttt[0]
+    assert "[task" not in proc.stderr and "sweep task" not in proc.stderr

@@ -100,11 +100,13 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
         combined["policy"] = policies
         import sys
 
-        def warn(msg: str) -> None:       # workers report on the sweep's stderr
-            print(f"{msg} [task {task_key}]", file=sys.stderr)
+        def warn(msg: str) -> None:       # workers report on the sweep's stderr, a line at
+            sys.stderr.write(f"{msg} [task {task_key}]\n")     # a time (one write each)
+            sys.stderr.flush()
 
-        scen = scenario_from_dict(combined, "sweep task", Path(base_dir), warn=warn,
-                                  load_plugins=True)
+        # the scenario's own warnings were given, once each, when the sweep was checked
+        # (spec.check_runs); only what the run finds is said here
+        scen = scenario_from_dict(combined, "sweep task", Path(base_dir), load_plugins=True)
         if len(scen.terminals) > TERMINAL_BATCH:
             parts = TableParts(out)                 # anonymous files: gone however this ends
             frames = run_tables(scen, check=True, warn=warn, parts=parts.store()).frames

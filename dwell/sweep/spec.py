@@ -38,6 +38,7 @@ import copy
 import hashlib
 import itertools
 import json
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
@@ -383,6 +384,17 @@ def _key_runs(plan: SweepPlan) -> None:
         sorted([r.key, r.params] for r in plan.runs)).encode()).hexdigest()
 
 
+def _by_policy_name(msg: str, run: Run) -> str:
+    """A run's warning with its ``policy[N]`` (an index into the run's own policies, which a
+    policy axis narrows) named as the base file names it, so the runs' alike warnings are one."""
+    names = [p.get("name") or p.get("rule") for p in run.scenario.get("policy", [])]
+
+    def named(m: re.Match) -> str:
+        i = int(m.group(1)) - 1
+        return f'policy "{names[i]}"' if 0 <= i < len(names) else m.group(0)
+    return re.sub(r"policy\[(\d+)\]", named, msg)
+
+
 def check_runs(plan: SweepPlan, *, load_plugins: bool,
                warn: Callable[[str], None] | None = None,
                each: Callable[[Any, int], None] | None = None) -> None:
@@ -406,7 +418,8 @@ def check_runs(plan: SweepPlan, *, load_plugins: bool,
         for run in runs:       # each run's policies (plug-ins loaded when asked)
             try:
                 scenario_from_dict(copy.deepcopy(run.scenario), plan.source, plan.base_dir,
-                                   build=False, load_plugins=load_plugins)
+                                   build=False, load_plugins=load_plugins,
+                                   warn=lambda msg, run=run: quiet(_by_policy_name(msg, run)))
             except InputError as exc:
                 raise _run_error(plan, index[id(run)], exc) from None
         i = index[id(runs[0])]
