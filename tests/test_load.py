@@ -170,3 +170,25 @@ def test_cell_switches_show_as_bursts(fixed_run):
     biggest = tables["load_bursts"]
     biggest = biggest[(biggest["level"] == "cell") & (biggest["direction"] == "into")]
     assert biggest["burst_terminals"].max() >= groups.max()
+
+
+def test_load_plot_bins_keep_the_busiest_second_and_the_mean():
+    # load.png bins a long run's seconds: each bin must show its largest per-second value and
+    # its mean per second (seconds without a handover count 0; the last bin may be shorter).
+    # Reference: pandas' groupby max and sum over the same bins, computed independently.
+    from dwell.analysis.maps import _bin_s, _binned
+    assert _bin_s(1800) == 1 and _bin_s(43200) == 60 and _bin_s(86400 * 7) == 60 * 7
+    rng = np.random.default_rng(5)
+    duration_s, bin_s = 7230.0, 60
+    second = np.sort(rng.choice(int(duration_s), 900, replace=False)).astype(float)
+    value = rng.integers(1, 9, second.size).astype(float)
+    edges, peak, mean = _binned(second, value, duration_s, bin_s)
+    assert edges[0] == 0 and edges[-1] == duration_s and len(peak) == len(edges) - 1 == 121
+    g = pd.Series(value).groupby(second // bin_s)
+    expect_peak = np.zeros(121)
+    expect_peak[g.max().index.astype(int)] = g.max().to_numpy()
+    expect_sum = np.zeros(121)
+    expect_sum[g.sum().index.astype(int)] = g.sum().to_numpy()
+    widths = np.r_[np.full(120, 60.0), 30.0]
+    np.testing.assert_array_equal(peak, expect_peak)
+    np.testing.assert_allclose(mean, expect_sum / widths, rtol=1e-12)   # float summation order

@@ -14,6 +14,7 @@ terminals; the load figure draws one spike per busy second.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -172,6 +173,26 @@ def policies_map_figure(map_df: pd.DataFrame, regions: list[Region], policies: l
     return fig
 
 
+def _bin_s(duration_s: float) -> int:
+    """Seconds per bin of the load-over-time panel: 1 up to half an hour, else whole minutes,
+    at most about 1,500 bins (common practice: no more bins than the figure has pixels)."""
+    if duration_s <= 1800:
+        return 1
+    return 60 * max(1, math.ceil(duration_s / 1500 / 60))
+
+
+def _binned(second: np.ndarray, value: np.ndarray, duration_s: float, bin_s: int):
+    """Bin edges (s), the largest value and the mean per second of each bin of ``bin_s``
+    seconds (seconds without a handover count as 0)."""
+    n = max(1, math.ceil(duration_s / bin_s))
+    idx = np.minimum((second // bin_s).astype(np.int64), n - 1)
+    peak = np.zeros(n)
+    np.maximum.at(peak, idx, value)
+    total = np.bincount(idx, weights=value, minlength=n)
+    edges = np.minimum(np.arange(n + 1) * float(bin_s), duration_s)
+    return edges, peak, total / np.diff(edges)
+
+
 def load_figure(load: pd.DataFrame, bursts: pd.DataFrame, peaks: pd.DataFrame, policy: str,
                 duration_s: float) -> Figure:
     """Handover load under ``policy``: per second over the run, the whole population's
@@ -185,9 +206,9 @@ def load_figure(load: pd.DataFrame, bursts: pd.DataFrame, peaks: pd.DataFrame, p
                                  height_ratios=(1.4, 1.0))
     cells = d[d["level"].astype(str) == "cell"]
     per_s = cells.groupby("second", sort=True)["into"].sum()    # every handover enters a cell
-    hours = per_s.index.to_numpy(dtype=float) / 3600.0
-    a1.vlines(hours, 0, per_s.to_numpy(), color="0.55", lw=0.6,
-              label="whole population (every handover)")
+    bin_s = _bin_s(duration_s)
+    series = [("whole population (every handover)", "0.45", per_s.index.to_numpy(dtype=float),
+               per_s.to_numpy(dtype=float))]
     for level, colour in (("satellite", "C0"), ("cell", "C3")):
         lp = pk[pk["level"].astype(str) == level]
         if not len(lp):
@@ -195,14 +216,27 @@ def load_figure(load: pd.DataFrame, bursts: pd.DataFrame, peaks: pd.DataFrame, p
         top = lp.iloc[int(np.argmax(lp["peak_per_s"].to_numpy()))]
         g = d[(d["level"].astype(str) == level)
               & (d["element"].astype(str) == str(top["element"]))]
-        a1.vlines(g["second"].to_numpy(dtype=float) / 3600.0, 0, g["total"].to_numpy(),
-                  color=colour, lw=1.0,
-                  label=f"busiest {level}: {top['element']} (peak {top['peak_per_s']:g}/s)")
+        series.append((f"busiest {level}: {top['element']} (peak {top['peak_per_s']:g}/s)",
+                       colour, g["second"].to_numpy(dtype=float), g["total"].to_numpy(dtype=float)))
+    for label, colour, sec, val in series:
+        if bin_s == 1:
+            a1.vlines(sec / 3600.0, 0, val, color=colour, lw=0.6, label=label)
+            continue
+        # a long run has more seconds than the figure has pixels: each bin shows its busiest
+        # second (the peak a processor must absorb) and, thinner, its mean per second
+        edges, peak, mean = _binned(sec, val, duration_s, bin_s)
+        a1.stairs(peak, edges / 3600.0, color=colour, lw=1.0, label=label)
+        a1.stairs(mean, edges / 3600.0, color=colour, lw=0.6, alpha=0.6)
     a1.set_xlim(0, duration_s / 3600.0)
     a1.set_ylim(bottom=0)
     a1.set_xlabel("scenario time (h)")
-    a1.set_ylabel("handovers in the second (weighted)")
-    a1.set_title(f"Handover load per second under {policy}", fontsize=10)
+    if bin_s == 1:
+        a1.set_ylabel("handovers in the second (weighted)")
+        a1.set_title(f"Handover load per second under {policy}", fontsize=10)
+    else:
+        a1.set_ylabel("handovers per second (weighted)")
+        a1.set_title(f"Handover load under {policy}: the busiest second of each "
+                     f"{bin_s / 60:g}-minute bin (thin: the bin's mean per second)", fontsize=10)
     a1.legend(fontsize=8, loc="upper right")
     a1.grid(alpha=0.3)
     shown = False

@@ -195,7 +195,9 @@ def visible_figure(visible, analytic_mean: dict[str, float], start) -> Figure:
 
 def timeline_figure(visible, links, handovers, terminal: str, hour: int, start) -> Figure:
     """One hour of one terminal: satellites in view, and for each policy a lane of its links
-    (alternating shades, satellite names on the longer ones) with handover instants marked."""
+    (the shade changes with the serving satellite, whose name is written on the longer stays)
+    with its handovers marked: satellite changes tall and black, beam or cell changes within
+    one satellite short and grey, failed attempts red.  Cost: one bar call per lane."""
     t0 = hour * 3600.0
 
     def minutes(col):
@@ -217,21 +219,42 @@ def timeline_figure(visible, links, handovers, terminal: str, hour: int, start) 
     a0.yaxis.set_major_locator(MaxNLocator(integer=True))
     a0.grid(alpha=0.3)
     h = handovers[handovers["terminal"].astype(str) == terminal]
+    marks = {"satellite change": dict(color="k", ms=7), "beam or cell change": dict(color="0.55",
+                                                                                    ms=4),
+             "failed handover": dict(color="tab:red", ms=7)}
+    shown: set[str] = set()
     for i, pol in enumerate(pols):
         g = lk[lk["policy"].astype(str) == pol]
         ls, le = minutes(g["start_utc"]), minutes(g["end_utc"])
         keep = (le > 0) & (ls < 60)
-        names = g["satellite"].astype(str)[keep]
-        for j, (s_name, a, b) in enumerate(zip(names, ls[keep], le[keep])):
-            a, b = max(a, 0.0), min(b, 60.0)
-            ax.barh(i, b - a, left=a, height=0.6, color=colours[pol], alpha=0.9 if j % 2 else 0.55,
-                    edgecolor="none")
-            if b - a > 3.5:            # room for the name
-                ax.text(0.5 * (a + b), i, s_name, ha="center", va="center", fontsize=6)
-        ht = minutes(h[h["policy"].astype(str) == pol]["time_utc"])
-        ht = ht[(ht >= 0) & (ht <= 60)]
-        ax.plot(ht, np.full(ht.shape, i + 0.38), "|", color="k", ms=5,
-                label="handover" if i == 0 else None)
+        sats = g["satellite"].astype(str).to_numpy()[keep]
+        a, b = np.maximum(ls[keep], 0.0), np.minimum(le[keep], 60.0)
+        # one stay = consecutive links on one satellite (beam changes keep it)
+        stay = np.cumsum(np.r_[True, sats[1:] != sats[:-1]]) - 1 if sats.size else sats
+        for odd, alpha in ((0, 0.55), (1, 0.9)):
+            m = stay % 2 == odd
+            if m.any():
+                ax.barh(np.full(int(m.sum()), i), (b - a)[m], left=a[m], height=0.6,
+                        color=colours[pol], alpha=alpha, edgecolor="none")
+        for s_id in np.unique(stay).tolist():
+            m = stay == s_id
+            lo, hi = float(a[m].min()), float(b[m].max())
+            if hi - lo > 3.5:            # room for the name
+                ax.text(0.5 * (lo + hi), i, sats[m][0], ha="center", va="center", fontsize=6)
+        hp = h[h["policy"].astype(str) == pol]
+        ht = minutes(hp["time_utc"])
+        inside = (ht >= 0) & (ht <= 60)
+        failed = (hp["outcome"].astype(str).to_numpy() != "success") if "outcome" in hp \
+            else np.zeros(len(hp), bool)
+        inter = hp["scope"].astype(str).to_numpy() == "inter-satellite" if "scope" in hp \
+            else np.ones(len(hp), bool)
+        for label, m in (("beam or cell change", ~inter & ~failed),
+                         ("satellite change", inter & ~failed), ("failed handover", failed)):
+            m = m & inside
+            if m.any():
+                ax.plot(ht[m], np.full(int(m.sum()), i + 0.38), "|", **marks[label],
+                        label=None if label in shown else label)
+                shown.add(label)
     ax.set_yticks(range(len(pols)))
     ax.set_yticklabels(pols)
     ax.set_ylabel("policy")
@@ -239,10 +262,10 @@ def timeline_figure(visible, links, handovers, terminal: str, hour: int, start) 
     ax.set_xlim(0, 60)
     ax.set_xlabel(f"minutes after the start of hour {hour}")
     ax.grid(alpha=0.3, axis="x")
-    if len(h):
+    if shown:
         ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     a0.set_title(f"{terminal}, hour {hour}: satellites in view (top) and serving satellite per "
-                 "policy (bars: links, names on the longer ones; ticks: handovers)")
+                 "policy (bars: links, a new shade per satellite; ticks: handovers)")
     return fig
 
 
