@@ -106,7 +106,7 @@ def passes(config: Path, out: Path, force: bool) -> None:
     from .orbits.geometry import Geometry
 
     check_output(out, folder=False)
-    scen = load_scenario(config, warn=_warn, build=False)
+    scen = load_scenario(config, warn=_warn, build=False, policy_warnings=False)  # runs none
     _checked_cost(scen, force, measure=False)
     build_scenario(scen, _warn)
     _input_checked()
@@ -212,7 +212,7 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float,
     check_output(out, folder=False)
     if not math.isfinite(at_s):
         raise InputError(str(config), "--at-s", at_s, "must be a finite time in seconds")
-    scen = load_scenario(config, warn=_warn, build=False)
+    scen = load_scenario(config, warn=_warn, build=False, policy_warnings=False)  # runs none
     # the export builds the satellites and the sites only: those parts must fit
     parts = [p for p in estimate_run(scen, measure=False).parts
              if p.what.startswith(("interpreter", "street canyon")) or "satellites" in p.what]

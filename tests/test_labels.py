@@ -9,6 +9,8 @@ said nothing.  An explicit ``[scenario] name`` is kept as given; scenarios built
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
 
 import pandas as pd
@@ -56,3 +58,25 @@ def test_summary_header_counts_in_singular_and_plural(tmp_path):
     head = summary_text(load_scenario(_write(tmp_path, "two.toml", raw)),
                         pd.DataFrame()).splitlines()[0]
     assert ", 2 terminals, 2 policies, " in head
+
+
+def test_policy_warnings_only_where_policies_run(tmp_path):
+    # A policy's timing warnings (here the default time-to-trigger, 0.32 s, below the 1 s
+    # period) concern runs of that policy; the pass search never runs one, so it says nothing
+    # of them, while still checking the policy tables (common practice: warn where it matters).
+    raw = {**BASE, "policy": [{"name": "a3", "rule": "a3"}]}
+    path = _write(tmp_path, "quiet.toml", raw)
+    said: list[str] = []
+    load_scenario(path, warn=said.append, build=False)
+    assert any("time_to_trigger_s" in m for m in said)
+    said.clear()
+    load_scenario(path, warn=said.append, build=False, policy_warnings=False)
+    assert said == []
+    proc = subprocess.run([sys.executable, "-m", "dwell.cli", "passes", str(path), "-o",
+                           str(tmp_path / "p.parquet")], capture_output=True, text=True)
+    assert proc.returncode == 0 and "warning" not in proc.stderr, proc.stderr
+    bad = _write(tmp_path, "bad.toml", {**BASE, "policy": [{"name": "a3", "rule": "a3",
+                                                            "offset_db": "high"}]})
+    proc = subprocess.run([sys.executable, "-m", "dwell.cli", "passes", str(bad), "-o",
+                           str(tmp_path / "q.parquet")], capture_output=True, text=True)
+    assert proc.returncode == 2 and "offset_db" in proc.stderr    # still checked

@@ -240,18 +240,21 @@ def _toml_position(message: str) -> tuple[str | None, str]:
 
 
 def load_scenario(path: str | Path, *, warn: Callable[[str], None] | None = None,
-                  build: bool = True, load_plugins: bool = False) -> Scenario:
+                  build: bool = True, load_plugins: bool = False,
+                  policy_warnings: bool = True) -> Scenario:
     """Read and check a scenario file; with ``build`` also build satellites and sites.
 
     Plug-in rule files are Python code: they run only with ``load_plugins`` (commands that run
-    policies); otherwise their files must exist and their parameters stay unchecked."""
+    policies); otherwise their files must exist and their parameters stay unchecked.  Commands
+    that run no policy pass ``policy_warnings = False``: the policies are still checked, but
+    warnings about their timing would only distract there."""
     path = Path(path)
     raw = read_toml(path)
     if isinstance(raw.get("scenario"), dict) and "name" not in raw["scenario"]:
         # a run is labelled after its file unless it says otherwise ("scenario" says nothing)
         raw["scenario"] = {**raw["scenario"], "name": path.stem or "scenario"}
     return scenario_from_dict(raw, str(path), path.resolve().parent, warn=warn, build=build,
-                              load_plugins=load_plugins)
+                              load_plugins=load_plugins, policy_warnings=policy_warnings)
 
 
 def _array_of_tables(raw: dict, key: str, source: str, required: bool) -> list[dict]:
@@ -289,10 +292,11 @@ def _absolute_path(value: str, base_dir: Path, source: str, where: str) -> str:
 
 def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
                        warn: Callable[[str], None] | None = None, build: bool = True,
-                       load_plugins: bool = False) -> Scenario:
+                       load_plugins: bool = False, policy_warnings: bool = True) -> Scenario:
     """Check a decoded scenario; ``source`` names the file in error messages (see
-    :func:`load_scenario` for ``build`` and ``load_plugins``)."""
+    :func:`load_scenario` for ``build``, ``load_plugins`` and ``policy_warnings``)."""
     warn = warn or (lambda msg: None)
+    policy_warn = warn if policy_warnings else (lambda msg: None)
     for key, value in raw.items():
         if key not in TOP_LEVEL:
             raise InputError(source, key, value if not isinstance(value, (dict, list)) else None,
@@ -353,25 +357,25 @@ def scenario_from_dict(raw: dict[str, Any], source: str, base_dir: Path, *,
     if link_params["interference"] is None:   # resolved, so run.toml says which
         link_params["interference"] = any(c["beams"]["layout"] != "single" for c in consts)
     _resolve_cell_origins(consts, terms)
-    pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source, warn,
-                                 base_dir, load_plugins=load_plugins)
+    pols = policies.check_tables(_array_of_tables(raw, "policy", source, False), source,
+                                 policy_warn, base_dir, load_plugins=load_plugins)
     for i, params in enumerate(pols):
         _absolute(params, base_dir, source, f"policy[{i + 1}]")
         policies.Policy.check_timing(params, float(scen["measurement_period_s"]), source,
-                                     f"policy[{i + 1}]", warn)
+                                     f"policy[{i + 1}]", policy_warn)
     from ..policies.cho import ConditionalHandover
     for i, params in enumerate(pols):
         if params.get("rule") == "cho":
             ConditionalHandover.check_release(params, int(scen["release"]), source,
-                                              f"policy[{i + 1}]", warn)
+                                              f"policy[{i + 1}]", policy_warn)
             moving = any(c["beams"]["layout"] != "single" and
                          c["beams"]["cell_mode"] == "earth-moving" for c in consts)
             ConditionalHandover.check_cell_mode(params, moving, source, f"policy[{i + 1}]",
-                                                warn)
+                                                policy_warn)
     from ..policies.base import ping_pong_warning
     msg = ping_pong_warning(pols, float(scen["measurement_period_s"]), source)
     if msg:
-        warn(msg)
+        policy_warn(msg)
 
     out = Scenario(source, base_dir, scen, consts, terms, pols, link_params, epoch=epoch,
                    areas=area_params, population=population)
