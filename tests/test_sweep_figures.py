@@ -21,6 +21,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 import tomli_w
 from click.testing import CliRunner
@@ -201,3 +202,58 @@ def test_site_sweep_draws_results_per_site_in_sweep_order(tmp_path):
     assert "by_site.png" in names
     ticks = next(v for k, v in seen.items() if k.startswith("Results per swept site"))
     assert ticks == ["lat+060.0", "lat+030.0", "lat+000.0"]     # the sweep file's order
+
+
+def test_area_sweep_has_area_columns_and_one_figure_per_area(tmp_path):
+    # An area in a sweep (issue 15 populations under issue 16 sweeps): the combined summary
+    # carries each terminal's area and weight, each run folder its map and areas tables, and
+    # the figures summarise an area by its weighted means instead of one figure per generated
+    # terminal.  Two independent computations must agree: areas.parquet's weighted means
+    # (dwell.analysis.population) and the sweep figure's (dwell.sweep.plots.area_means), and
+    # both equal sum(w x) / sum(w) over the summary rows (the definition of a weighted mean).
+    from dwell.sweep.plots import area_means
+    base = tmp_path / "area.toml"
+    base.write_text(tomli_w.dumps({
+        "scenario": {"start": "2027-05-10T00:00:00Z", "duration_s": 900, "seed": 2},
+        "constellation": [{"kind": "walker-delta", "name": "wren", "satellites": 720,
+                           "planes": 36, "phasing": 1, "altitude_km": 560,
+                           "inclination_deg": 53.5}],
+        "terminal": [{"name": "mill-field", "lat_deg": 47.6, "lon_deg": 9.2}],
+        "area": [{"name": "vale", "lat_min_deg": 44, "lat_max_deg": 46, "lon_min_deg": 2,
+                  "lon_max_deg": 6, "spacing_km": 100, "weight": 3.0},
+                 {"name": "moor", "lat_min_deg": 50, "lat_max_deg": 51, "lon_min_deg": 2,
+                  "lon_max_deg": 4, "spacing_km": 80}],
+        "policy": [{"name": "a3", "rule": "a3", "time_to_trigger_s": 1.024,
+                    "ping_pong_window_s": 4.0}]}))
+    sweep = tmp_path / "sweep.toml"
+    sweep.write_text(tomli_w.dumps({"sweep": {"base": str(base), "name": "areas"},
+                                    "axis": [{"key": KEY, "values": [0.0, 3.0]}]}))
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["sweep", str(sweep), "-o", str(out), "--workers", "1"])
+    assert res.exit_code == 0, res.output
+    df = combined_summary(out)
+    listed = df["terminal"].astype(str) == "mill-field"
+    assert df.loc[listed, "area"].isna().all() and (df.loc[listed, "weight"] == 1.0).all()
+    for area, weight in (("vale", 3.0), ("moor", 1.0)):
+        mine = df[df["area"] == area]
+        assert len(mine) and mine["terminal"].astype(str).str.startswith(f"{area}-").all()
+        assert (mine["weight"] == weight).all()
+        means = area_means(df, area, [KEY])
+        assert len(means) == 2                              # one per run (one policy)
+        for _, row in means.iterrows():
+            runs = mine[mine["run_key"] == row["run_key"]]
+            w = runs["weight"].to_numpy(float)
+            x = runs["handovers_per_hour"].to_numpy(float)
+            assert row["handovers_per_hour"] == pytest.approx((w * x).sum() / w.sum(), rel=1e-12)
+            ar = pd.read_parquet(out / "_runs" / row["run_key"] / "areas.parquet")
+            ar = ar[ar["area"].astype(str) == area].iloc[0]
+            assert ar["handovers_per_hour_mean"] == pytest.approx(row["handovers_per_hour"],
+                                                                  rel=1e-12)
+    names = [r.name for r in render_sweep(out, finish=lambda fig: b"")]
+    assert "tradeoff_area_vale.png" in names and "tradeoff_area_moor.png" in names
+    assert "tradeoff_mill-field.png" in names
+    assert not any(n.startswith(("tradeoff_vale-", "tradeoff_moor-")) for n in names)
+    from dwell.sweep.report import report_sweep
+    page = report_sweep(out).read_text()
+    assert "area vale: weighted means over its" in page and "comparison-mill-field" in page
+    assert "comparison-vale-001" not in page            # generated terminals: on request only

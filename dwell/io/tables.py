@@ -54,8 +54,11 @@ def arrow_columns(df: pd.DataFrame) -> pa.Table:
                 cols[name] = pa.array(values.to_numpy().astype("datetime64[us]"),
                                       type=pa.timestamp("us", tz="UTC"))
         elif name in CATEGORY_COLUMNS:
-            cols[name] = pa.array(values.astype(str).to_numpy(dtype=object),
-                                  type=pa.string()).dictionary_encode()
+            if values.isna().any():          # missing (a listed terminal's area): null
+                text = [None if pd.isna(v) else str(v) for v in values.astype(object).tolist()]
+            else:
+                text = values.astype(str).to_numpy(dtype=object)
+            cols[name] = pa.array(text, type=pa.string()).dictionary_encode()
         elif getattr(values.dtype, "kind", "O") in "biuf":
             cols[name] = pa.array(values.to_numpy())
         else:  # text (object or pandas string dtype), missing values as nulls

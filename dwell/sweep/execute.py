@@ -6,6 +6,7 @@ and files starting with ``_`` or ``.`` are ignored by Parquet dataset readers)::
 
     DIR/summary-<run key>.parquet     one per finished run: its summary rows + parameter columns
     DIR/_runs/<run key>/              links, handovers, outages, dwell_ccdf, summary, run.toml
+                                      (and map, areas when the scenario has [[area]] tables)
     DIR/_tasks/<task key>/            passes and visible (shared by the task's runs)
     DIR/_failed/<run key>.json        the error of a failed run (retried on the next start)
     DIR/_sweep.toml                   the sweep file, for the record
@@ -85,7 +86,7 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
     from ..io.config import scenario_from_dict
     from ..io.parts import FrameSource, TableParts
     from ..io.tables import provenance, write_frame, write_tables
-    from ..run import TERMINAL_BATCH, run_tables, run_toml
+    from ..run import TERMINAL_BATCH, map_and_areas, run_tables, run_toml
 
     out = Path(out_dir)
     parts = None
@@ -130,8 +131,12 @@ def run_task(task_key: str, runs: list[dict], base_dir: str, out_dir: str,
                     write_tables(rows, tmp / f"{name}.parquet", epoch=run_scen.epoch,
                                  metadata=provenance(run_scen),
                                  schema=None if name == "summary" else schema_of(name))
+                summ = _of_run(frames["summary"], mine)
+                if run_scen.population is not None and len(run_scen.population):
+                    for name, df in map_and_areas(run_scen, summ).items():   # map, areas
+                        write_frame(df, tmp / f"{name}.parquet", run_scen)
                 (tmp / "run.toml").write_text(run_toml(run_scen, out / "_runs" / r["key"]))
-            summ = _of_run(frames["summary"], mine)
+            summ = _with_areas(summ, run_scen)
             for key, col in columns.items():
                 value = r["params"].get(key)
                 summ[col] = value if not isinstance(value, (list, dict)) else json.dumps(value)
@@ -154,6 +159,23 @@ def _of_run(df: pd.DataFrame, mine: dict[str, str]) -> pd.DataFrame:
     df = df[df["policy"].astype(str).isin(list(mine))].copy()
     df["policy"] = df["policy"].astype(str).map(mine)
     return df.reset_index(drop=True)
+
+
+def _with_areas(summ: pd.DataFrame, scen) -> pd.DataFrame:
+    """A run's summary rows with each terminal's ``area`` (None for listed terminals) and
+    ``weight`` when its scenario has ``[[area]]`` tables (the map's columns, so the combined
+    summary can be grouped by area and weighted); unchanged otherwise."""
+    from ..io.areas import terminal_weights
+
+    pop = scen.population
+    if pop is None or not len(pop):
+        return summ
+    names = scen.terminal_names()
+    area = {names[pop.first_index + i]: str(a) for i, a in enumerate(pop.area.tolist())}
+    weight = dict(zip(names, terminal_weights(scen).tolist()))
+    term = summ["terminal"].astype(str)
+    return summ.assign(area=term.map(area).astype(object).where(term.isin(area), None),
+                       weight=term.map(weight).astype(float))
 
 
 def _runs_rows(tables, mine: dict[str, str]):

@@ -1,4 +1,5 @@
-"""Figures of a sweep, per terminal: handover rate against each swept value, and trade-off
+"""Figures of a sweep, per terminal (and per area: its terminals' weighted means): handover
+rate against each swept value, and trade-off
 curves (outage, ping-pong and radio link failures against handover rate) with every point
 labelled by its swept value and lines joining the points in sweep order; the worst-hour
 switches per policy.  Error bars are the summary's 95 % intervals (``*_lo``/``*_hi``), never
@@ -100,10 +101,14 @@ def swept_axes(out: Path, df: pd.DataFrame) -> list[SweptAxis]:
 
 def _metrics(g: pd.DataFrame) -> dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]]:
     """(value, lo, hi) per plotted quantity, from the summary's interval columns (the failure
-    rate's exact Poisson interval from its count, as the summary computes the others)."""
+    rate's exact Poisson interval from its count, as the summary computes the others; none
+    for the weighted means of an area, whose counts are not Poisson)."""
     hours = g["duration_h"].to_numpy(dtype=float)
     rlf = g["radio_link_failures"].to_numpy(dtype=float)
-    rlf_lo, rlf_hi = poisson_rate_interval(rlf, hours)
+    if AREA_MEAN in g.columns:
+        rlf_lo = rlf_hi = np.full(rlf.shape, np.nan)
+    else:
+        rlf_lo, rlf_hi = poisson_rate_interval(rlf, hours)
     return {
         "ho": (g["handovers_per_hour"].to_numpy(dtype=float),
                g["handovers_per_hour_lo"].to_numpy(dtype=float),
@@ -162,6 +167,38 @@ def _curves(d: pd.DataFrame, along: SweptAxis | None, others: list[SweptAxis],
         yield label, g
 
 
+AREA_MEAN = "_area_terminals"    # marks rows that are an area's weighted means
+MEANS = ("handovers_per_hour", "outage_fraction", "ping_pongs", "radio_link_failures",
+         "worst_hour_handovers", "dwell_mean_s")
+# per-terminal statistics that a mean over terminals would misstate: left empty
+NOT_MEANS = ("handovers_per_hour_lo", "handovers_per_hour_hi", "outage_fraction_lo",
+             "outage_fraction_hi", "ping_pong_per_hour_lo", "ping_pong_per_hour_hi",
+             "dwell_mean_lo_s", "dwell_mean_hi_s", "slew_p95_deg")
+
+
+def area_means(df: pd.DataFrame, area: str, keep: list[str]) -> pd.DataFrame:
+    """One row per run and policy: the weighted means over the area's terminals of the
+    quantities the sweep's figures and report show (weights: the population's, as
+    ``areas.parquet`` weights its means), with the run's columns ``keep`` (its swept values;
+    the same for all its rows).  Intervals and percentiles are NaN: a mean over terminals
+    has no Poisson interval, and a mean of percentiles is no percentile."""
+    d = df[df["area"].astype(object) == area]
+    cols = list(dict.fromkeys(["run_key", "policy", "duration_h"] +
+                              [c for c in keep if c in d.columns]))
+    rows = []
+    for _, g in d.groupby(["run_key", "policy"], sort=False, observed=True):
+        w = g["weight"].to_numpy(dtype=float)
+        row = {c: g[c].iloc[0] for c in cols}
+        for col in MEANS:
+            row[col] = float(np.average(g[col].to_numpy(dtype=float), weights=w)) \
+                if w.sum() > 0 else float(g[col].mean())
+        row.update({c: np.nan for c in NOT_MEANS})
+        row["terminal"] = f"area {area}"
+        row[AREA_MEAN] = len(g)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
 def tradeoff_figure(d: pd.DataFrame, terminal: str, axes: list[SweptAxis]):
     """One terminal: per numeric swept axis a block of four panels (handover rate against the
     value, then outage, ping-pong and failures against handover rate), or one block of points
@@ -204,8 +241,9 @@ def tradeoff_figure(d: pd.DataFrame, terminal: str, axes: list[SweptAxis]):
             panels[0].set_title(f"Handover rate against {along.short}", fontsize=10)
             panels[0].set_xticks(sorted({float(v) for v in along.order}))
             block.suptitle(f"Swept: {along.label}; trade-off points are labelled with its "
-                           "value and joined in sweep order (handover-rate intervals: first "
-                           "panel)", fontsize=10)
+                           "value and joined in sweep order" + (
+                               "" if AREA_MEAN in d.columns else
+                               " (handover-rate intervals: first panel)"), fontsize=10)
         else:
             panels[0].set_xticks(range(len(groups)), [lab for lab, _ in groups], rotation=20,
                                  ha="right", fontsize=8)
@@ -224,7 +262,11 @@ def tradeoff_figure(d: pd.DataFrame, terminal: str, axes: list[SweptAxis]):
                 ax.grid(alpha=0.3)
         panels[1].legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.02, 1.0),
                          title="lines: runs alike in\nevery other axis", title_fontsize=8)
-    fig.suptitle(f"{terminal}: sweep trade-offs (bars: 95 % intervals from the summary)")
+    if AREA_MEAN in d.columns:
+        fig.suptitle(f"{terminal}: sweep trade-offs of the weighted means over its "
+                     f"{int(d[AREA_MEAN].max())} terminals (no intervals)")
+    else:
+        fig.suptitle(f"{terminal}: sweep trade-offs (bars: 95 % intervals from the summary)")
     return fig
 
 
@@ -327,8 +369,21 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     if site_axis is not None:         # generated sites in sweep order
         rank = {str(v): i for i, v in enumerate(site_axis.order)}
         terms.sort(key=lambda t: rank.get(t, len(rank)))
-    chosen = [terminal] if terminal is not None else terms[:MAX_TERMINALS]
+    areas = [] if "area" not in df.columns else \
+        [str(a) for a in dict.fromkeys(df["area"].dropna().astype(str))]
+    in_area = set(df.loc[df["area"].notna(), "terminal"].astype(str)) if areas else set()
+    listed = [t for t in terms if t not in in_area]
+    # generated terminals are drawn one by one only when asked for: their area's figure
+    # summarises them
+    chosen = [terminal] if terminal is not None else listed[:MAX_TERMINALS]
     figures = []
+    for area in areas[:MAX_TERMINALS] if terminal is None else []:
+        d = area_means(df, area, [ax.column for ax in axes])
+        figures.append(Rendered(
+            f"tradeoff_area_{_slug(area)}.png",
+            f"area {area}: the weighted means over its terminals of the handover rate against "
+            "each swept value, and of outage, ping-pong and failures against it.",
+            finish(tradeoff_figure(d, f"area {area}", axes))))
     for term in chosen:
         d = df[df["terminal"].astype(str) == term]
         figures.append(Rendered(
@@ -343,7 +398,7 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     pols = list(dict.fromkeys(df["policy"].astype(str)))
     figures.append(Rendered("worst_hour_switches.png", "Worst-hour handovers per policy over "
                             "the runs, per terminal.",
-                            finish(worst_hour_figure(df, chosen[:4], pols))))
+                            finish(worst_hour_figure(df, (chosen or terms)[:4], pols))))
     return figures
 
 

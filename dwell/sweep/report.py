@@ -15,7 +15,7 @@ from ..analysis.report import (Section, all_columns_html, esc, figure_html, fmt,
 from ..io.atomic import write_text
 from ..io.errors import InputError
 from .execute import combined_summary
-from .plots import SweptAxis, render_sweep, swept_axes
+from .plots import AREA_MEAN, SweptAxis, area_means, render_sweep, swept_axes
 
 MAX_CONFIGS = 200     # runs whose resolved configuration the page carries in full
 # the leading underscore keeps it out of the Parquet dataset: pandas.read_parquet(DIR) reads
@@ -89,8 +89,14 @@ def report_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     axes = swept_axes(out, df)
     failed = _failed(out)
     terms = list(dict.fromkeys(df["terminal"].astype(str)))
-    shown_terms = [terminal] if terminal is not None else terms
     view = df if policy is None else df[df["policy"].astype(str) == policy]
+    # an area's terminals are compared through its weighted means (one by one on request)
+    areas = [] if "area" not in df.columns else \
+        [str(a) for a in dict.fromkeys(df["area"].dropna().astype(str))]
+    in_area = set(df.loc[df["area"].notna(), "terminal"].astype(str)) if areas else set()
+    shown_terms = [terminal] if terminal is not None else [t for t in terms if t not in in_area]
+    per_area = [] if terminal is not None else [
+        (f"area {a}", area_means(view, a, [ax.column for ax in axes])) for a in areas]
     axes_table = pd.DataFrame({"key": [a.key for a in axes],
                                "summary column": [a.column for a in axes],
                                "values in sweep order": [", ".join(fmt(v) for v in a.order)
@@ -99,7 +105,12 @@ def report_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
         table_html(_sorted_runs(view[view["terminal"].astype(str) == t], axes),
                    _comparison_columns(axes), f"comparison-{t}", f"{t}: runs in sweep order "
                    "(95 % intervals in brackets)", ("policy", "run key"))
-        for t in shown_terms)
+        for t in shown_terms) + "".join(
+        table_html(_sorted_runs(d, axes), _comparison_columns(axes),
+                   f"comparison-{name.replace(' ', '-')}", f"{name}: weighted means over its "
+                   f"{int(d[AREA_MEAN].max())} terminals, runs in sweep order (no intervals)",
+                   ("policy", "run key"))
+        for name, d in per_area if len(d))
     sections = [
         Section("swept", "Swept values",
                 table_html(axes_table, {"key": "key", "summary column": "summary column",
