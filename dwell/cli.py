@@ -386,7 +386,8 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
 
     # every run checked as dwell run would, before the first starts (plug-ins only run for real)
     check_runs(plan, load_plugins=not dry_run, warn=_once(_warn), each=fits)
-    _input_checked()
+    # the warnings wait until the folder is known to be free too (taken under the sweep's
+    # lock): a refused sweep says one line
     if not dry_run:
         check_output(out, folder=True)
     problem = folder_problem(plan, out, fresh)
@@ -406,7 +407,8 @@ def sweep(sweep_file: Path, out: Path, workers: int, executor: str, scheduler: s
     with Progress("sweep", "runs", rate_unit="run") as bar:
         rep = execute_sweep(plan, out, workers=workers, executor=executor, scheduler=scheduler,
                             progress=lambda done, failed, total, eta:
-                            bar.to(done + failed, total, f"{failed} failed"), fresh=fresh)
+                            bar.to(done + failed, total, f"{failed} failed"), fresh=fresh,
+                            started=_input_checked)
     click.echo(f"done {rep.done}, failed {rep.failed}, skipped {rep.skipped} (already finished) "
                f"of {rep.total} runs in {rep.seconds:.0f} s -> {out}")
     for e in rep.errors[:10]:

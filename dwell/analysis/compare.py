@@ -233,8 +233,12 @@ def _hourly(a: np.ndarray, b: np.ndarray, w: np.ndarray, duration_s: float
 
 
 def _ratio_ci(num: np.ndarray, den: np.ndarray) -> tuple[float, float]:
-    """Interval of a time average; a point when the hours cannot vary it."""
-    if num.size < 3 or np.allclose(num / np.maximum(den, 1e-9), (num / np.maximum(den, 1e-9))[0]):
+    """Interval of a time average; a point when every hour has the same value, unknown (NaN)
+    when the run has fewer than 3 clock hours to resample (a point would claim a certainty
+    the run cannot show, and mark the analytic value outside it)."""
+    if num.size < 3:
+        return math.nan, math.nan
+    if np.allclose(num / np.maximum(den, 1e-9), (num / np.maximum(den, 1e-9))[0]):
         v = float(num.sum() / den.sum())
         return v, v
     return ratio_interval(num, den, SEED, n_resamples=1999)
@@ -246,9 +250,8 @@ def _sd_ci(s1: np.ndarray, s2: np.ndarray, den: np.ndarray) -> tuple[float, floa
     def sd(a, b, c, axis=-1):
         m = np.sum(a, axis=axis) / np.sum(c, axis=axis)
         return np.sqrt(np.maximum(np.sum(b, axis=axis) / np.sum(c, axis=axis) - m * m, 0.0))
-    if s1.size < 3:
-        v = float(sd(s1, s2, den))
-        return v, v
+    if s1.size < 3:                 # too few hours to resample: unknown, as in _ratio_ci
+        return math.nan, math.nan
     res = stats.bootstrap((s1, s2, den), sd, paired=True, vectorized=True, n_resamples=1999,
                           method="percentile", random_state=np.random.default_rng(SEED + 2))
     return float(res.confidence_interval.low), float(res.confidence_interval.high)
@@ -639,7 +642,9 @@ def format_comparison(df: pd.DataFrame, title: str | None = None) -> str:
             continue
         key = (r["source"], r["note"], r["interval"])
         ref = refs.setdefault(key, len(refs) + 1)
-        sim = f"{_fmt(r['simulated'])} ({_fmt(r['sim_lo'])}..{_fmt(r['sim_hi'])})"
+        known = np.isfinite(r["sim_lo"]) and np.isfinite(r["sim_hi"])
+        sim = f"{_fmt(r['simulated'])} " + (f"({_fmt(r['sim_lo'])}..{_fmt(r['sim_hi'])})"
+                                            if known else "(no interval)")
         inside = r["inside_interval"]
         mark = "-" if inside is pd.NA or inside is None else ("yes" if inside else "no")
         rel = f"{r['rel_diff']:>+9.2%}" if np.isfinite(r["rel_diff"]) else f"{'-':>9}"

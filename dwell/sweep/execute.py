@@ -338,10 +338,12 @@ def _clear(out: Path, everything: bool) -> None:
 def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1,
                   executor: str = "local", scheduler: str | None = None,
                   progress: Callable[[int, int, int, float], None] | None = None,
-                  fresh: bool = False) -> SweepReport:
+                  fresh: bool = False, started: Callable[[], None] | None = None
+                  ) -> SweepReport:
     """Run the plan's unfinished runs into ``out_dir`` (see the module docstring); ``fresh``
     first clears everything dwell wrote there (and so starts over).  Raises OutputError when
-    the folder holds something else or another sweep is running in it."""
+    the folder holds something else or another sweep is running in it; ``started()`` is
+    called once the folder is known to be this sweep's, before anything is written."""
     out = Path(out_dir)
     problem = folder_problem(plan, out, fresh)
     if problem:
@@ -354,6 +356,8 @@ def execute_sweep(plan: SweepPlan, out_dir: str | Path, *, workers: int = 1,
         problem = folder_problem(plan, out, fresh)      # again, now that no one else writes
         if problem:
             raise OutputError(f"{out}: {problem}")
+        if started is not None:
+            started()
         _clear(out, everything=fresh)
         write_text(out / PLAN_FILE, json.dumps({"fingerprint": plan.fingerprint,
                                                 "name": plan.name, "runs": len(plan.runs),
