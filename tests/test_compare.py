@@ -230,3 +230,17 @@ def test_walker_pass_rows_match_the_simulation(tmp_path):
         assert r["applicable"] and abs(r["rel_diff"]) < 0.02, (q, r["rel_diff"])
     assert "POISSON APPROXIMATION" in df.loc[("-", "fraction of time none in view"), "note"]
     assert df.loc[("keep", "handovers per hour"), "applicable"]
+
+
+def test_time_average_of_fewer_than_three_hours_has_no_interval():
+    # A bootstrap over clock hours resamples hours: with one or two hours it cannot show the
+    # run's sampling error (common practice: a block bootstrap needs several blocks), so the
+    # interval is unknown (NaN, "no interval", not judged) rather than a zero-width point.
+    from dwell.analysis.compare import _ratio_ci, _sd_ci
+    num, den = np.array([3500.0, 3300.0]), np.array([3600.0, 3600.0])
+    assert all(np.isnan(_ratio_ci(num, den)))
+    assert all(np.isnan(_sd_ci(num, num * 1.1, den)))
+    lo, hi = _ratio_ci(np.array([3500.0, 3300.0, 3400.0, 3550.0]), np.full(4, 3600.0))
+    assert lo < 3437.5 / 3600.0 < hi                 # the point estimate lies inside
+    v = _ratio_ci(np.full(4, 1800.0), np.full(4, 3600.0))   # every hour alike: a point
+    assert v == (0.5, 0.5)
