@@ -245,13 +245,14 @@ def mask(config: Path, terminal: str, out: Path, step_deg: float, at_s: float,
 @guarded
 def compare(outdir: Path) -> None:
     """Compare a run's (or a sweep's seed ensembles') simulated values with analytic formulas."""
-    from .analysis.compare import format_comparison, write_comparison
+    from .analysis.compare import format_comparison, places_of, write_comparison
     from .io.atomic import write_text
 
     if (outdir / "_sweep.toml").exists():
         from .analysis.ensemble import compare_sweep
         df = compare_sweep(outdir)
-        text = format_comparison(df, "runs pooled over seeds (groups: see the group column)")
+        text = format_comparison(df, "runs pooled over seeds (groups: see the group column)",
+                                 places_of(outdir))
         # underscore names: Parquet dataset readers of the sweep folder skip them
         write_text(outdir / "_comparison.txt", text)
         write_comparison(df, outdir / "_comparison.parquet")
@@ -260,7 +261,7 @@ def compare(outdir: Path) -> None:
         from .io.config import load_scenario
         _need(outdir, "run.toml")
         df = compare_run(outdir)
-        text = format_comparison(df)
+        text = format_comparison(df, places=places_of(outdir))
         write_text(outdir / "comparison.txt", text)
         write_comparison(df, outdir / "comparison.parquet",
                          load_scenario(outdir / "run.toml", build=False))  # provenance only

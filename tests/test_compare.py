@@ -244,3 +244,27 @@ def test_time_average_of_fewer_than_three_hours_has_no_interval():
     assert lo < 3437.5 / 3600.0 < hi                 # the point estimate lies inside
     v = _ratio_ci(np.full(4, 1800.0), np.full(4, 3600.0))   # every hour alike: a point
     assert v == (0.5, 0.5)
+
+
+def test_area_terminals_are_shown_by_latitude_band():
+    # The text table of an area shows, per 1-degree latitude band, the arithmetic mean of its
+    # terminals' simulated and analytic values and how many intervals hold the analytic
+    # value; listed terminals keep their own lines (the mean is its definition; the counts
+    # are counted here by hand).
+    from dwell.analysis.compare import _row, format_comparison, frame
+    q = "mean in view"
+    rows = [_row("mill-field", "-", q, 15.0, 14.0, 16.0, 15.2, "iv", "src"),
+            _row("vale-001", "-", q, 10.0, 9.0, 11.0, 10.5, "iv", "src"),     # inside
+            _row("vale-002", "-", q, 12.0, 11.5, 12.5, 13.0, "iv", "src"),    # outside
+            _row("vale-003", "-", q, 20.0, 19.0, 21.0, 20.0, "iv", "src")]    # inside
+    places = pd.DataFrame({"terminal": ["vale-001", "vale-002", "vale-003"],
+                           "area": ["vale"] * 3, "lat_deg": [44.2, 44.9, 45.1]})
+    text = format_comparison(frame(rows), places=places)
+    lines = text.splitlines()
+    assert any(line.startswith("mill-field") for line in lines)
+    assert not any(line.startswith("vale-00") for line in lines)
+    band44 = next(line for line in lines if "lat 44..45 (2)" in line)
+    assert "11 mean" in band44 and "11.75" in band44 and "1/2" in band44
+    assert f"{11.0 / 11.75 - 1:+.2%}" in band44
+    band45 = next(line for line in lines if "lat 45..46 (1)" in line)
+    assert "20 mean" in band45 and "1/1" in band45

@@ -617,13 +617,83 @@ def write_comparison(df: pd.DataFrame, path: str | Path, scen: Scenario | None =
     write_table(table, path)
 
 
+def _comparison_line(r: pd.Series, refs: dict) -> str:
+    """One row of the text table (its reference numbered in ``refs``)."""
+    if not r["applicable"]:
+        return f"{r['terminal']:<14} {r['policy']:<18} {r['quantity']:<44} {r['note']}"
+    ref = refs.setdefault((r["source"], r["note"], r["interval"]), len(refs) + 1)
+    known = np.isfinite(r["sim_lo"]) and np.isfinite(r["sim_hi"])
+    sim = f"{_fmt(r['simulated'])} " + (f"({_fmt(r['sim_lo'])}..{_fmt(r['sim_hi'])})"
+                                        if known else "(no interval)")
+    inside = r["inside_interval"]
+    mark = "-" if inside is pd.NA or inside is None else ("yes" if inside else "no")
+    rel = f"{r['rel_diff']:>+9.2%}" if np.isfinite(r["rel_diff"]) else f"{'-':>9}"
+    return (f"{r['terminal']:<14} {r['policy']:<18} {r['quantity']:<44} {sim:<30} "
+            f"{_fmt(r['analytic']):>10} {rel}  {mark:<6}  [{ref}]")
+
+
+def _area_lines(rows: pd.DataFrame, placed: dict, refs: dict) -> list[str]:
+    """Generated terminals' rows by area, policy, quantity and 1-degree latitude band: the
+    band's mean simulated and analytic values, their relative difference, and how many of the
+    band's intervals hold the analytic value (of those judged)."""
+    if not len(rows):
+        return []
+    terms = rows["terminal"].astype(str)
+    rows = rows.assign(_area=terms.map(lambda t: placed[t][0]),
+                       _band=terms.map(lambda t: math.floor(placed[t][1])))
+    out = []
+    for (area, policy, quantity), g in rows.groupby(["_area", "policy", "quantity"],
+                                                    sort=False):
+        n = g["terminal"].nunique()
+        label = f"{area} ({n})"
+        ok = g[g["applicable"].astype(bool)]
+        if not len(ok):
+            out.append(f"{label:<14} {policy:<18} {quantity:<44} {g['note'].iloc[0]}")
+            continue
+        first = ok.iloc[0]
+        ref = refs.setdefault((first["source"], first["note"], first["interval"]), len(refs) + 1)
+        for band, b in ok.groupby("_band", sort=True):
+            sim, ana = float(b["simulated"].mean()), float(b["analytic"].mean())
+            judged = [v for v in b["inside_interval"].tolist()
+                      if v is not pd.NA and v is not None]
+            mark = f"{sum(bool(v) for v in judged)}/{len(judged)}" if judged else "-"
+            rel = f"{sim / ana - 1.0:>+9.2%}" if np.isfinite(sim / ana) and ana != 0 \
+                else f"{'-':>9}"
+            where = f"lat {band}..{band + 1} ({b['terminal'].nunique()})"
+            out.append(f"{area:<14} {policy:<18} {quantity[:44]:<44} "
+                       f"{_fmt(sim) + ' mean, ' + where:<30} {_fmt(ana):>10} {rel}  "
+                       f"{mark:<6}  [{ref}]")
+        if len(ok) < len(g):
+            na = g[~g["applicable"].astype(bool)]
+            out.append(f"{label:<14} {policy:<18} {quantity:<44} not applicable for "
+                       f"{na['terminal'].nunique()} terminals: {na['note'].iloc[0]}")
+    return out
+
+
+def places_of(folder: str | Path) -> pd.DataFrame | None:
+    """Terminal, area and latitude of a run folder's generated terminals (its ``map`` table),
+    or of a sweep's (the first run's): None without areas."""
+    folder = Path(folder)
+    found = [folder / "map.parquet"] + sorted((folder / "_runs").glob("*/map.parquet"))
+    path = next((f for f in found if f.is_file()), None)
+    if path is None:
+        return None
+    mp = pd.read_parquet(path, columns=["terminal", "area", "lat_deg"])
+    return mp.drop_duplicates("terminal") if len(mp) else None
+
+
 def _fmt(v: float) -> str:
     return "nan" if not np.isfinite(v) else f"{v:.4g}"
 
 
-def format_comparison(df: pd.DataFrame, title: str | None = None) -> str:
+def format_comparison(df: pd.DataFrame, title: str | None = None,
+                      places: pd.DataFrame | None = None) -> str:
     """Plain-text table: one line per row, then the numbered sources and notes, the geometry
-    of each terminal and what the intervals cover."""
+    of each terminal and what the intervals cover.  With ``places`` (the ``map`` table's
+    ``terminal``, ``area`` and ``lat_deg`` of generated terminals) an area's terminals are
+    shown by 1-degree latitude band instead of one by one: the mean simulated and analytic
+    values of the band's terminals and how many of their intervals hold the analytic value
+    (every terminal's row stays in the Parquet table)."""
     lines = []
     if title:
         lines += [title, ""]
@@ -632,33 +702,30 @@ def format_comparison(df: pd.DataFrame, title: str | None = None) -> str:
     lines.append(head)
     lines.append("-" * len(head))
     refs: dict[tuple[str, str, str], int] = {}
-    group = None
-    for _, r in df.iterrows():
-        if r["group"] and r["group"] != group:
-            group = r["group"]
+    placed = {} if places is None or not len(places) else dict(zip(
+        places["terminal"].astype(str), zip(places["area"].astype(str),
+                                            places["lat_deg"].astype(float))))
+    generated = df["terminal"].astype(str).isin(placed)
+    for group, g in df.groupby(df["group"].fillna(""), sort=False):
+        if group:
             lines.append(f"-- runs with {group}")
-        if not r["applicable"]:
-            lines.append(f"{r['terminal']:<14} {r['policy']:<18} {r['quantity']:<44} {r['note']}")
-            continue
-        key = (r["source"], r["note"], r["interval"])
-        ref = refs.setdefault(key, len(refs) + 1)
-        known = np.isfinite(r["sim_lo"]) and np.isfinite(r["sim_hi"])
-        sim = f"{_fmt(r['simulated'])} " + (f"({_fmt(r['sim_lo'])}..{_fmt(r['sim_hi'])})"
-                                            if known else "(no interval)")
-        inside = r["inside_interval"]
-        mark = "-" if inside is pd.NA or inside is None else ("yes" if inside else "no")
-        rel = f"{r['rel_diff']:>+9.2%}" if np.isfinite(r["rel_diff"]) else f"{'-':>9}"
-        lines.append(f"{r['terminal']:<14} {r['policy']:<18} {r['quantity']:<44} {sim:<30} "
-                     f"{_fmt(r['analytic']):>10} {rel}  {mark:<6}  [{ref}]")
+        for _, r in g[~generated.loc[g.index]].iterrows():
+            lines.append(_comparison_line(r, refs))
+        lines += _area_lines(g[generated.loc[g.index]], placed, refs)
     if refs:
         lines.append("")
         for (source, note, interval), ref in refs.items():
             lines.append(f"[{ref}] {source}" + (f"; {note}" if note else "")
                          + (f"; interval: {interval}" if interval else ""))
-    geos = df[df["applicable"] & (df["geometry"] != "")].drop_duplicates("terminal")
+    geos = df[df["applicable"] & (df["geometry"] != "") & ~generated].drop_duplicates(
+        "terminal")
     if len(geos):
         lines.append("")
         lines += [f"geometry of {r['terminal']}: {r['geometry']}" for _, r in geos.iterrows()]
+    if generated.any():
+        lines.append("")
+        lines.append("geometry of each generated terminal: the geometry column of the Parquet "
+                     "table")
     runs = int(df["runs"].max()) if len(df) else 1
     lines.append("")
     if runs <= 1:
