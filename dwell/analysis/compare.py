@@ -172,14 +172,18 @@ def read_run(run_dir: str | Path) -> RunTables:
 
 def _mean_radius_km(scen: Scenario, shell: str) -> float:
     """Mean SGP4 radius of a shell's satellites over one orbit (J2 keeps it a few km off the
-    nominal altitude)."""
+    nominal altitude).  The same for every terminal: computed once per scenario and shell
+    (an area's thousands of terminals would otherwise propagate the shell each)."""
     from sgp4.api import SatrecArray
-    sats = [s.satrec for s in scen.constellation.satellites if s.shell == shell]
-    n = min(s.satrec.no_kozai for s in scen.constellation.satellites if s.shell == shell) / 60
-    t = np.linspace(0.0, 2 * math.pi / n, 97)
-    jd, fr = scen.epoch.julian(t)
-    _, r, _ = SatrecArray(sats).sgp4(jd, fr)
-    return float(np.nanmean(np.linalg.norm(r, axis=-1)))
+    cache = scen.__dict__.setdefault("_mean_radius_km", {})
+    if shell not in cache:
+        sats = [s.satrec for s in scen.constellation.satellites if s.shell == shell]
+        n = min(s.satrec.no_kozai for s in scen.constellation.satellites if s.shell == shell) / 60
+        t = np.linspace(0.0, 2 * math.pi / n, 97)
+        jd, fr = scen.epoch.julian(t)
+        _, r, _ = SatrecArray(sats).sgp4(jd, fr)
+        cache[shell] = float(np.nanmean(np.linalg.norm(r, axis=-1)))
+    return cache[shell]
 
 
 @dataclass
