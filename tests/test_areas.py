@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import copy
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -309,6 +310,24 @@ def test_plot_draws_maps_and_load(area_run):
         return b""
     names = [f.name for f in render_run(out, check_choice(out, None, None, None), finish=count)]
     assert names[0] == "dwell_ccdf.png" and panels[0] == 2
+
+
+def test_report_shows_areas_by_their_means_and_latitude_bands(area_run):
+    # the report of an area run keeps the listed terminal's rows and shows the area by its
+    # areas.parquet row and its latitude bands, not one row per generated terminal; the
+    # bands' terminal counts add up to the area's (accounting)
+    from dwell.analysis.report import report_run
+    _, _, out = area_run
+    page = report_run(out).read_text()
+    assert 'id="areas-table"' in page and 'id="bands-table"' in page
+    assert "harbour-field" in page and "plain-001" not in page.split('id="figures"')[0]
+    body = page.split('id="bands-table"')[1].split("</table>")[0]
+    counts = [int(c) for c in re.findall(r'lat -?\d+\.\.-?\d+</td><td class="num">(\d+)<',
+                                         body)]
+    n_area = int(pd.read_parquet(out / "areas.parquet")["terminals"].iloc[0])
+    bands = body.count("mean in view</td>")           # one row of each quantity per band
+    quantities = len(counts) // bands
+    assert bands > 1 and sum(counts) == n_area * quantities
 
 
 def test_tables_do_not_depend_on_workers_or_executor(area_run, tmp_path):

@@ -636,41 +636,62 @@ def _comparison_line(r: pd.Series, refs: dict) -> str:
             f"{_fmt(r['analytic']):>10} {rel}  {mark:<6}  [{ref}]")
 
 
-def _area_lines(rows: pd.DataFrame, placed: dict, refs: dict) -> list[str]:
-    """Generated terminals' rows by area, policy, quantity and 1-degree latitude band: the
-    band's mean simulated and analytic values, their relative difference, and how many of the
-    band's intervals hold the analytic value (of those judged)."""
-    if not len(rows):
-        return []
+def area_bands(rows: pd.DataFrame, places: pd.DataFrame | None) -> pd.DataFrame:
+    """Generated terminals' comparison rows by area, policy, quantity and 1-degree latitude
+    band: the band's mean simulated and analytic values (arithmetic means over its
+    terminals), their relative difference, and how many of the band's intervals hold the
+    analytic value (``inside``, "k/n" of those judged, "-" if none).  Quantities that apply to
+    none of an area's terminals give one row with the note (``band`` empty).  ``places`` is
+    the map table (terminal, area, lat_deg); rows of other terminals are left out."""
+    cols = ["area", "band", "terminals", "policy", "quantity", "simulated", "analytic",
+            "rel_diff", "inside", "applicable", "source", "note", "interval"]
+    if places is None or not len(places) or not len(rows):
+        return pd.DataFrame(columns=cols)
+    placed = dict(zip(places["terminal"].astype(str),
+                      zip(places["area"].astype(str), places["lat_deg"].astype(float))))
+    rows = rows[rows["terminal"].astype(str).isin(placed)]
     terms = rows["terminal"].astype(str)
     rows = rows.assign(_area=terms.map(lambda t: placed[t][0]),
                        _band=terms.map(lambda t: math.floor(placed[t][1])))
     out = []
     for (area, policy, quantity), g in rows.groupby(["_area", "policy", "quantity"],
                                                     sort=False):
-        n = g["terminal"].nunique()
-        label = f"{area} ({n})"
         ok = g[g["applicable"].astype(bool)]
-        if not len(ok):
-            out.append(f"{label:<14} {policy:<18} {quantity:<44} {g['note'].iloc[0]}")
-            continue
-        first = ok.iloc[0]
-        ref = refs.setdefault((first["source"], first["note"], first["interval"]), len(refs) + 1)
-        for band, b in ok.groupby("_band", sort=True):
-            sim, ana = float(b["simulated"].mean()), float(b["analytic"].mean())
-            judged = [v for v in b["inside_interval"].tolist()
+        na = g[~g["applicable"].astype(bool)]
+        if len(na):
+            out.append({"area": area, "band": "", "terminals": na["terminal"].nunique(),
+                        "policy": policy, "quantity": quantity, "simulated": math.nan,
+                        "analytic": math.nan, "rel_diff": math.nan, "inside": "-",
+                        "applicable": False, "source": "", "interval": "",
+                        "note": na["note"].iloc[0]})
+        for band, bd in ok.groupby("_band", sort=True):
+            sim, ana = float(bd["simulated"].mean()), float(bd["analytic"].mean())
+            judged = [v for v in bd["inside_interval"].tolist()
                       if v is not pd.NA and v is not None]
-            mark = f"{sum(bool(v) for v in judged)}/{len(judged)}" if judged else "-"
-            rel = f"{sim / ana - 1.0:>+9.2%}" if np.isfinite(sim / ana) and ana != 0 \
-                else f"{'-':>9}"
-            where = f"lat {band}..{band + 1} ({b['terminal'].nunique()})"
-            out.append(f"{area:<14} {policy:<18} {quantity[:44]:<44} "
-                       f"{_fmt(sim) + ' mean, ' + where:<30} {_fmt(ana):>10} {rel}  "
-                       f"{mark:<6}  [{ref}]")
-        if len(ok) < len(g):
-            na = g[~g["applicable"].astype(bool)]
-            out.append(f"{label:<14} {policy:<18} {quantity:<44} not applicable for "
-                       f"{na['terminal'].nunique()} terminals: {na['note'].iloc[0]}")
+            out.append({"area": area, "band": f"lat {band}..{band + 1}",
+                        "terminals": bd["terminal"].nunique(), "policy": policy,
+                        "quantity": quantity, "simulated": sim, "analytic": ana,
+                        "rel_diff": sim / ana - 1.0 if np.isfinite(ana) and ana != 0
+                        else math.nan,
+                        "inside": f"{sum(bool(v) for v in judged)}/{len(judged)}" if judged
+                        else "-", "applicable": True, "source": bd["source"].iloc[0],
+                        "note": bd["note"].iloc[0], "interval": bd["interval"].iloc[0]})
+    return pd.DataFrame(out, columns=cols)
+
+
+def _area_lines(rows: pd.DataFrame, places: pd.DataFrame | None, refs: dict) -> list[str]:
+    """The text lines of :func:`area_bands`."""
+    out = []
+    for _, r in area_bands(rows, places).iterrows():
+        label = f"{r['area']} ({r['terminals']})"
+        if not r["applicable"]:
+            out.append(f"{label:<14} {r['policy']:<18} {r['quantity']:<44} {r['note']}")
+            continue
+        ref = refs.setdefault((r["source"], r["note"], r["interval"]), len(refs) + 1)
+        rel = f"{r['rel_diff']:>+9.2%}" if np.isfinite(r["rel_diff"]) else f"{'-':>9}"
+        where = f"{_fmt(r['simulated'])} mean, {r['band']} ({r['terminals']})"
+        out.append(f"{r['area']:<14} {r['policy']:<18} {r['quantity'][:44]:<44} {where:<30} "
+                   f"{_fmt(r['analytic']):>10} {rel}  {r['inside']:<6}  [{ref}]")
     return out
 
 
@@ -715,7 +736,7 @@ def format_comparison(df: pd.DataFrame, title: str | None = None,
             lines.append(f"-- runs with {group}")
         for _, r in g[~generated.loc[g.index]].iterrows():
             lines.append(_comparison_line(r, refs))
-        lines += _area_lines(g[generated.loc[g.index]], placed, refs)
+        lines += _area_lines(g[generated.loc[g.index]], places, refs)
     if refs:
         lines.append("")
         for (source, note, interval), ref in refs.items():
