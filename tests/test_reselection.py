@@ -211,7 +211,7 @@ def test_camping_loss_is_followed_by_cell_selection_not_reestablishment():
     assert rec.failures, "the sparse shell should leave the terminal without a suitable cell"
     after_loss = [link for link in rec.links if link[4] not in ("initial", "handover")]
     assert len(after_loss) == len(rec.failures) or len(after_loss) == len(rec.failures) - 1
-    assert {link[4] for link in after_loss} == {"selection"}
+    assert {link[4] for link in after_loss} == {"cell-selection"}
     for link, lost in zip(after_loss, rec.failures):
         found = link[2] - 0.2                    # the measurement instant a cell was suitable
         assert found >= lost

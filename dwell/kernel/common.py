@@ -8,7 +8,7 @@ Execution model of one terminal under one policy (both kernels implement exactly
   Q_out) the policy selects one; the link starts then (initial access) or after
   ``reestablishment_s`` (re-establishment while T311 runs, else a new setup from idle); an
   idle-mode terminal camps after ``interruption_s`` instead (cell selection, start reason
-  "selection"; :meth:`RunSettings.back_in_service`).
+  "cell-selection"; :meth:`RunSettings.back_in_service`).
 - Up on cell c of satellite s: radio link monitoring on the TS 38.133 cadence
   (:mod:`dwell.kernel.rlm`): an indication every ``rlm_indication_s``, out-of-sync when the
   SINR averaged over the last ``rlm_evaluation_out_s`` is below ``q_out_sinr_db`` (or c is not
@@ -154,7 +154,7 @@ class RunSettings:
         camps once it has read that cell's system information, the ``interruption_s`` a
         reselection takes too."""
         if self.idle:
-            return "selection", self.hardware.interruption_s
+            return "cell-selection", self.hardware.interruption_s
         if t_found_s < t_lost_s + self.t311_s:
             return "reestablishment", self.reestablishment_s
         return "setup", self.reestablishment_s

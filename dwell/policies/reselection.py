@@ -6,7 +6,10 @@ A terminal in idle mode is camped on a cell and moves by itself, without signall
 - **S-criterion** (5.2.3.2): a cell is suitable when Srxlev = Qrxlevmeas - Qrxlevmin > 0
   (``q_rxlevmin_dbm``; offsets and power compensation are taken as zero).  When the camped
   cell stops being suitable, or is lost, the terminal selects the strongest suitable cell at
-  once (trigger "selection", or "loss" at the end of the camped satellite's window);
+  once (trigger "selection", or "loss" at the end of the camped satellite's window); when
+  no cell is suitable at all the kernels record a camping loss and the terminal camps again,
+  by cell selection, once one is (link start reason "cell-selection",
+  :meth:`dwell.kernel.common.RunSettings.back_in_service`);
 - **when to measure** (5.2.4.2, with the Rel-17 NTN additions): neighbours are measured when
   Srxlev of the camped cell is at or below ``s_intrasearch_p_db`` (not set: always), or when the
   terminal is farther than ``distance_thresh_km`` from the camped cell's reference location
