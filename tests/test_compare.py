@@ -268,3 +268,17 @@ def test_area_terminals_are_shown_by_latitude_band():
     assert f"{11.0 / 11.75 - 1:+.2%}" in band44
     band45 = next(line for line in lines if "lat 45..46 (1)" in line)
     assert "20 mean" in band45 and "1/1" in band45
+
+
+def test_sweep_bands_leave_out_terminals_that_move_between_runs(tmp_path):
+    # Random points under a seed axis sit elsewhere in each run: their pooled rows have no
+    # one latitude, so they are not banded (shown one by one); fixed grid points are.
+    from dwell.analysis.compare import places_of
+    for run, lat in (("a", 44.2), ("b", 45.7)):
+        folder = tmp_path / "_runs" / run
+        folder.mkdir(parents=True)
+        pd.DataFrame({"terminal": ["vale-001", "vale-002"], "area": ["vale", "vale"],
+                      "lat_deg": [40.0, lat], "lon_deg": [3.0, 3.0]}).to_parquet(
+            folder / "map.parquet")
+    places = places_of(tmp_path)
+    assert places["terminal"].tolist() == ["vale-001"]

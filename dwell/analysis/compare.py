@@ -43,6 +43,7 @@ variation between draws (see :mod:`dwell.analysis.ensemble`).
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -238,8 +239,9 @@ def _hourly(a: np.ndarray, b: np.ndarray, w: np.ndarray, duration_s: float
 
 def _ratio_ci(num: np.ndarray, den: np.ndarray) -> tuple[float, float]:
     """Interval of a time average; a point when every hour has the same value, unknown (NaN)
-    when the run has fewer than 3 clock hours to resample (a point would claim a certainty
-    the run cannot show, and mark the analytic value outside it)."""
+    when the run has fewer than 3 clock hours to resample, the last one possibly partial (a
+    run of 2 h or less: a point would claim a certainty the run cannot show, and mark the
+    analytic value outside it)."""
     if num.size < 3:
         return math.nan, math.nan
     if np.allclose(num / np.maximum(den, 1e-9), (num / np.maximum(den, 1e-9))[0]):
@@ -675,7 +677,10 @@ def area_bands(rows: pd.DataFrame, places: pd.DataFrame | None) -> pd.DataFrame:
                         else math.nan,
                         "inside": f"{sum(bool(v) for v in judged)}/{len(judged)}" if judged
                         else "-", "applicable": True, "source": bd["source"].iloc[0],
-                        "note": bd["note"].iloc[0], "interval": bd["interval"].iloc[0]})
+                        # one note for the band: not a pooled terminal's own spread
+                        "note": re.sub(r"; analytic values differ across runs by [^;]*", "",
+                                       str(bd["note"].iloc[0])),
+                        "interval": bd["interval"].iloc[0]})
     return pd.DataFrame(out, columns=cols)
 
 
@@ -697,14 +702,23 @@ def _area_lines(rows: pd.DataFrame, places: pd.DataFrame | None, refs: dict) -> 
 
 def places_of(folder: str | Path) -> pd.DataFrame | None:
     """Terminal, area and latitude of a run folder's generated terminals (its ``map`` table),
-    or of a sweep's (the first run's): None without areas."""
+    or of a sweep's (every run's map; a terminal that is not at the same place in all of them,
+    random points under a seed axis, is left out: its pooled rows have no one latitude).
+    None without areas."""
     folder = Path(folder)
-    found = [folder / "map.parquet"] + sorted((folder / "_runs").glob("*/map.parquet"))
-    path = next((f for f in found if f.is_file()), None)
-    if path is None:
+    found = [f for f in [folder / "map.parquet"] + sorted((folder / "_runs").glob("*/map.parquet"))
+             if f.is_file()]
+    if not found:
         return None
-    mp = pd.read_parquet(path, columns=["terminal", "area", "lat_deg"])
-    return mp.drop_duplicates("terminal") if len(mp) else None
+    mp = pd.concat([pd.read_parquet(f, columns=["terminal", "area", "lat_deg", "lon_deg"])
+                    for f in found], ignore_index=True)
+    if not len(mp):
+        return None
+    mp["terminal"] = mp["terminal"].astype(str)
+    same = mp.groupby("terminal")[["lat_deg", "lon_deg"]].agg(lambda v: v.max() - v.min())
+    fixed = set(same.index[(same["lat_deg"] < 1e-9) & (same["lon_deg"] < 1e-9)])
+    mp = mp[mp["terminal"].isin(fixed)].drop_duplicates("terminal")
+    return mp[["terminal", "area", "lat_deg"]] if len(mp) else None
 
 
 def _fmt(v: float) -> str:
@@ -727,10 +741,8 @@ def format_comparison(df: pd.DataFrame, title: str | None = None,
     lines.append(head)
     lines.append("-" * len(head))
     refs: dict[tuple[str, str, str], int] = {}
-    placed = {} if places is None or not len(places) else dict(zip(
-        places["terminal"].astype(str), zip(places["area"].astype(str),
-                                            places["lat_deg"].astype(float))))
-    generated = df["terminal"].astype(str).isin(placed)
+    generated = df["terminal"].astype(str).isin(
+        set() if places is None else set(places["terminal"].astype(str)))
     for group, g in df.groupby(df["group"].fillna(""), sort=False):
         if group:
             lines.append(f"-- runs with {group}")

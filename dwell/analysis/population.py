@@ -58,7 +58,10 @@ def map_frame(summary: pd.DataFrame, population, first_index: int,
     return out
 
 
-def _weighted_mean(values: np.ndarray, weight: np.ndarray) -> float:
+def weighted_mean(values: np.ndarray, weight: np.ndarray) -> float:
+    """Mean of the finite ``values`` weighted by ``weight`` (the plain mean if those weights
+    sum to zero; NaN without finite values): the area means of ``areas.parquet``."""
+    values, weight = np.asarray(values, float), np.asarray(weight, float)
     ok = np.isfinite(values)
     if not ok.any():
         return float("nan")
@@ -87,7 +90,7 @@ def areas_frame(map_df: pd.DataFrame, area_names: list[str], policies: list[str]
                 if c not in g:
                     continue
                 v = g[c].to_numpy(dtype=float)
-                row[f"{c}_mean"] = _weighted_mean(v, w)
+                row[f"{c}_mean"] = weighted_mean(v, w)
                 row[f"{c}_min"] = float(np.nanmin(v)) if np.isfinite(v).any() else float("nan")
                 row[f"{c}_max"] = float(np.nanmax(v)) if np.isfinite(v).any() else float("nan")
             rows.append(row)

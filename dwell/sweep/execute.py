@@ -454,8 +454,23 @@ def _run_dask(jobs, plan, out, columns, workers, scheduler, note) -> None:
 def combined_summary(out_dir: str | Path) -> pd.DataFrame:
     """The sweep's combined summary, in a stable row order."""
     out = Path(out_dir)
-    if not any(out.glob("summary-*.parquet")):
+    files = sorted(out.glob("summary-*.parquet"))
+    if not files:
         return pd.DataFrame()
-    df = pd.read_parquet(out)
+    # file by file, not as one dataset: a dataset takes its columns from one file, and runs a
+    # sweep finished with an older dwell may lack newer columns (they read as missing here)
+    df = pd.concat([pd.read_parquet(f) for f in files], ignore_index=True)
+    if "area" in df.columns and df["area"].isna().any():
+        # rows from before the area columns: a generated terminal's name is its area's and
+        # index, the same in every run, so its area and weight are those of its other rows
+        known = df[df["area"].notna()].drop_duplicates("terminal")
+        term = df["terminal"].astype(str)
+        fill = df["area"].isna() & term.isin(set(known["terminal"].astype(str)))
+        if fill.any():
+            df["area"] = df["area"].astype(object)
+            for col in ("area", "weight"):
+                df.loc[fill, col] = term[fill].map(dict(zip(known["terminal"].astype(str),
+                                                            known[col])))
+        df.loc[df["weight"].isna() & ~fill, "weight"] = 1.0      # listed terminals weigh 1
     return df.sort_values(["run_key", "terminal", "policy"], kind="stable").reset_index(drop=True)
 

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..analysis.analytic import poisson_rate_interval
+from ..analysis.population import weighted_mean
 from ..analysis.figures import Rendered, write_rendered
 from ..analysis.plots import Figure, plt, png_bytes
 from ..io.errors import InputError
@@ -176,6 +177,16 @@ NOT_MEANS = ("handovers_per_hour_lo", "handovers_per_hour_hi", "outage_fraction_
              "dwell_mean_lo_s", "dwell_mean_hi_s", "slew_p95_deg")
 
 
+def area_terminals(df: pd.DataFrame) -> tuple[list[str], set[str]]:
+    """The areas of a combined summary (in order) and the terminals they generated; none for a
+    sweep without ``[[area]]`` tables."""
+    if "area" not in df.columns:
+        return [], set()
+    has = df["area"].notna()
+    return ([str(a) for a in dict.fromkeys(df.loc[has, "area"].astype(str))],
+            set(df.loc[has, "terminal"].astype(str)))
+
+
 def area_means(df: pd.DataFrame, area: str, keep: list[str]) -> pd.DataFrame:
     """One row per run and policy: the weighted means over the area's terminals of the
     quantities the sweep's figures and report show (weights: the population's, as
@@ -189,9 +200,8 @@ def area_means(df: pd.DataFrame, area: str, keep: list[str]) -> pd.DataFrame:
     for _, g in d.groupby(["run_key", "policy"], sort=False, observed=True):
         w = g["weight"].to_numpy(dtype=float)
         row = {c: g[c].iloc[0] for c in cols}
-        for col in MEANS:
-            row[col] = float(np.average(g[col].to_numpy(dtype=float), weights=w)) \
-                if w.sum() > 0 else float(g[col].mean())
+        for col in MEANS:            # as areas.parquet has them: NaN terminals left out
+            row[col] = weighted_mean(g[col].to_numpy(dtype=float), w)
         row.update({c: np.nan for c in NOT_MEANS})
         row["terminal"] = f"area {area}"
         row[AREA_MEAN] = len(g)
@@ -328,7 +338,8 @@ def worst_hour_figure(df: pd.DataFrame, terminals: list[str], policies: list[str
     return fig
 
 
-def _slug(name: str) -> str:
+def slug(name: str) -> str:
+    """A name made safe for a file name or an HTML id."""
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name)[:80]
 
 
@@ -369,9 +380,7 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     if site_axis is not None:         # generated sites in sweep order
         rank = {str(v): i for i, v in enumerate(site_axis.order)}
         terms.sort(key=lambda t: rank.get(t, len(rank)))
-    areas = [] if "area" not in df.columns else \
-        [str(a) for a in dict.fromkeys(df["area"].dropna().astype(str))]
-    in_area = set(df.loc[df["area"].notna(), "terminal"].astype(str)) if areas else set()
+    areas, in_area = area_terminals(df)
     listed = [t for t in terms if t not in in_area]
     # generated terminals are drawn one by one only when asked for: their area's figure
     # summarises them
@@ -380,14 +389,14 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     for area in areas[:MAX_TERMINALS] if terminal is None else []:
         d = area_means(df, area, [ax.column for ax in axes])
         figures.append(Rendered(
-            f"tradeoff_area_{_slug(area)}.png",
+            f"area_tradeoff_{slug(area)}.png",      # never a terminal's tradeoff_<name>
             f"area {area}: the weighted means over its terminals of the handover rate against "
             "each swept value, and of outage, ping-pong and failures against it.",
             finish(tradeoff_figure(d, f"area {area}", axes))))
     for term in chosen:
         d = df[df["terminal"].astype(str) == term]
         figures.append(Rendered(
-            f"tradeoff_{_slug(term)}.png",
+            f"tradeoff_{slug(term)}.png",
             f"{term}: handover rate against each swept value, and outage, ping-pong and "
             "failures against handover rate (95 % intervals).",
             finish(tradeoff_figure(d, term, axes))))
@@ -396,9 +405,10 @@ def render_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
                                 "swept site, in sweep order (95 % intervals).",
                                 finish(by_terminal_figure(df, site_axis, axes))))
     pols = list(dict.fromkeys(df["policy"].astype(str)))
-    figures.append(Rendered("worst_hour_switches.png", "Worst-hour handovers per policy over "
-                            "the runs, per terminal.",
-                            finish(worst_hour_figure(df, (chosen or terms)[:4], pols))))
+    if chosen:                 # per terminal: an area-only sweep has none to show one by one
+        figures.append(Rendered("worst_hour_switches.png", "Worst-hour handovers per policy "
+                                "over the runs, per terminal.",
+                                finish(worst_hour_figure(df, chosen[:4], pols))))
     return figures
 
 

@@ -15,7 +15,8 @@ from ..analysis.report import (Section, all_columns_html, esc, figure_html, fmt,
 from ..io.atomic import write_text
 from ..io.errors import InputError
 from .execute import combined_summary
-from .plots import AREA_MEAN, SweptAxis, area_means, render_sweep, swept_axes
+from .plots import (AREA_MEAN, SweptAxis, area_means, area_terminals, render_sweep, slug,
+                    swept_axes)
 
 MAX_CONFIGS = 200     # runs whose resolved configuration the page carries in full
 # the leading underscore keeps it out of the Parquet dataset: pandas.read_parquet(DIR) reads
@@ -91,12 +92,10 @@ def report_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
     terms = list(dict.fromkeys(df["terminal"].astype(str)))
     view = df if policy is None else df[df["policy"].astype(str) == policy]
     # an area's terminals are compared through its weighted means (one by one on request)
-    areas = [] if "area" not in df.columns else \
-        [str(a) for a in dict.fromkeys(df["area"].dropna().astype(str))]
-    in_area = set(df.loc[df["area"].notna(), "terminal"].astype(str)) if areas else set()
+    areas, in_area = area_terminals(df)
     shown_terms = [terminal] if terminal is not None else [t for t in terms if t not in in_area]
     per_area = [] if terminal is not None else [
-        (f"area {a}", area_means(view, a, [ax.column for ax in axes])) for a in areas]
+        (a, area_means(view, a, [ax.column for ax in axes])) for a in areas]
     axes_table = pd.DataFrame({"key": [a.key for a in axes],
                                "summary column": [a.column for a in axes],
                                "values in sweep order": [", ".join(fmt(v) for v in a.order)
@@ -107,7 +106,7 @@ def report_sweep(out_dir: str | Path, terminal: str | None = None, policy: str |
                    "(95 % intervals in brackets)", ("policy", "run key"))
         for t in shown_terms) + "".join(
         table_html(_sorted_runs(d, axes), _comparison_columns(axes),
-                   f"comparison-{name.replace(' ', '-')}", f"{name}: weighted means over its "
+                   f"area-comparison-{slug(name)}", f"area {name}: weighted means over its "
                    f"{int(d[AREA_MEAN].max())} terminals, runs in sweep order (no intervals)",
                    ("policy", "run key"))
         for name, d in per_area if len(d))
