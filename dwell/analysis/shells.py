@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy.integrate import quad
@@ -70,9 +71,10 @@ class Site:
 
 # ---- one shell --------------------------------------------------------------------------------
 
+@lru_cache(maxsize=4096)    # pure in its frozen arguments: an area's rows share a latitude
 def mean_in_view(shell: Shell, site: Site) -> float:
     """Time-averaged number of the shell's satellites in view.  Cost: O(1) isotropic, one
-    quadrature inclined."""
+    quadrature inclined (once per shell and site: cached)."""
     psi0 = site.psi0(shell)
     if shell.isotropic:
         return float(isotropic_mean_in_view(shell.n_sat, psi0))
@@ -212,8 +214,10 @@ def inclined_pass_rate_per_s(n_sat: int, inclination_deg: float, terminal_lat_de
     return float(np.sum(f * jac * w[None, :]))
 
 
+@lru_cache(maxsize=4096)
 def pass_rate_per_s(shell: Shell, site: Site) -> float:
-    """Pass starts per second of one shell at the site (isotropic or inclined form)."""
+    """Pass starts per second of one shell at the site (isotropic or inclined form; cached
+    per shell and site)."""
     psi0 = site.psi0(shell)
     if shell.isotropic:
         return isotropic_pass_rate_per_s(shell.n_sat, psi0, shell.omega_rad_s, site.lat_deg,
